@@ -1,0 +1,13 @@
+//! The pure core: units, folds, models, metrics and the validation itself.
+//!
+//! Nothing here touches a database, a file or async code: data in, values out.
+
+pub mod folds;
+pub mod geometry;
+pub mod metrics;
+pub mod models;
+pub mod units;
+pub mod validate;
+
+#[cfg(test)]
+pub mod testing;

@@ -1,0 +1,555 @@
+//! Units: the places being validated (districts, catchments, tracts, sites).
+//!
+//! Adapters feed raw rows (id, geometry, target, features) into a [`UnitCollector`],
+//! which applies the input-hygiene rules once for every source: rows with a NULL
+//! or empty geometry, or a missing / non-finite target or feature, are skipped and
+//! counted by reason; duplicate ids are an error. The result is a [`Dataset`] in
+//! id order, so fold assignment does not depend on the row order of the source.
+
+use std::cmp::Ordering;
+use std::collections::BTreeMap;
+use std::fmt;
+
+use geo_types::Geometry;
+use serde::Serialize;
+use sha2::{Digest, Sha256};
+
+use crate::core::geometry::representative_point;
+use crate::error::{Error, Location};
+
+/// A unit's id as it is in the source table: an integer or a text.
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+pub enum UnitId {
+    /// An `integer`/`bigint`/`smallint` id (or an INTEGER GeoPackage key).
+    Int(i64),
+    /// A `text`/`varchar` id.
+    Text(String),
+}
+
+impl Ord for UnitId {
+    fn cmp(&self, other: &Self) -> Ordering {
+        match (self, other) {
+            (UnitId::Int(a), UnitId::Int(b)) => a.cmp(b),
+            (UnitId::Text(a), UnitId::Text(b)) => a.as_bytes().cmp(b.as_bytes()),
+            (UnitId::Int(_), UnitId::Text(_)) => Ordering::Less,
+            (UnitId::Text(_), UnitId::Int(_)) => Ordering::Greater,
+        }
+    }
+}
+
+impl PartialOrd for UnitId {
+    fn partial_cmp(&self, other: &Self) -> Option<Ordering> {
+        Some(self.cmp(other))
+    }
+}
+
+impl fmt::Display for UnitId {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            UnitId::Int(value) => write!(f, "{value}"),
+            UnitId::Text(value) => write!(f, "{value}"),
+        }
+    }
+}
+
+/// The kind of id a source has; results tables use the matching column type.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum IdKind {
+    /// Integers of any width, stored as 64-bit.
+    Integer,
+    /// Text.
+    Text,
+}
+
+/// Why a row was skipped. Each skipped row counts once, under the first reason
+/// found in this order: geometry, target, features (in the order given).
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize)]
+pub struct SkipCounts {
+    /// Rows whose geometry is NULL.
+    pub no_geometry: u64,
+    /// Rows whose geometry is empty.
+    pub empty_geometry: u64,
+    /// Rows whose target is NULL, NaN or infinite.
+    pub missing_target: u64,
+    /// Rows whose feature is NULL, NaN or infinite, by feature column.
+    pub missing_feature: BTreeMap<String, u64>,
+}
+
+impl SkipCounts {
+    /// All skipped rows.
+    pub fn total(&self) -> u64 {
+        self.no_geometry
+            + self.empty_geometry
+            + self.missing_target
+            + self.missing_feature.values().sum::<u64>()
+    }
+
+    /// `(reason, count)` pairs with a non-zero count, for summaries.
+    pub fn reasons(&self) -> Vec<(String, u64)> {
+        let mut reasons = Vec::new();
+        for (name, count) in [
+            ("no geometry", self.no_geometry),
+            ("empty geometry", self.empty_geometry),
+            ("missing target", self.missing_target),
+        ] {
+            if count > 0 {
+                reasons.push((name.to_string(), count));
+            }
+        }
+        for (column, count) in &self.missing_feature {
+            if *count > 0 {
+                reasons.push((format!("missing feature {column}"), *count));
+            }
+        }
+        reasons
+    }
+}
+
+/// A geometry as an adapter found it.
+pub enum RawGeometry {
+    /// The column is NULL.
+    Null,
+    /// Decoded.
+    Decoded(Geometry<f64>),
+}
+
+/// The units of one run, in ascending id order, with their representative points.
+#[derive(Debug, Clone)]
+pub struct Dataset {
+    /// Unit ids, ascending.
+    pub ids: Vec<UnitId>,
+    /// Representative point (x, y) of each unit, in the distance CRS.
+    pub points: Vec<[f64; 2]>,
+    /// Observed target of each unit.
+    pub target: Vec<f64>,
+    /// Feature values, row-major: unit `i`, feature `j` at `i * n_features + j`.
+    pub features: Vec<f64>,
+    /// Feature names, in column order.
+    pub feature_names: Vec<String>,
+    /// Kind of id.
+    pub id_kind: IdKind,
+    /// Geometry kinds seen among used units.
+    pub geometry_kinds: GeometryKinds,
+    /// Rows read from the source (used + skipped).
+    pub rows_read: u64,
+    /// Skipped rows by reason.
+    pub skipped: SkipCounts,
+}
+
+/// Which geometry families the used units have, so writers can type their columns.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize)]
+pub struct GeometryKinds {
+    /// Any Point or MultiPoint.
+    pub points: bool,
+    /// Any Polygon or MultiPolygon.
+    pub polygons: bool,
+    /// Anything else (lines, collections).
+    pub other: bool,
+}
+
+impl Dataset {
+    /// Number of units.
+    pub fn len(&self) -> usize {
+        self.ids.len()
+    }
+
+    /// True when there are no units.
+    pub fn is_empty(&self) -> bool {
+        self.ids.is_empty()
+    }
+
+    /// Number of features.
+    pub fn n_features(&self) -> usize {
+        self.feature_names.len()
+    }
+
+    /// The feature values of unit `i`.
+    pub fn features_of(&self, i: usize) -> &[f64] {
+        let m = self.n_features();
+        &self.features[i * m..(i + 1) * m]
+    }
+
+    /// A SHA-256 fingerprint of the used units (ids, points, target and features,
+    /// in id order) and the skip counts: equal inputs give equal fingerprints
+    /// whatever the row order of the source.
+    pub fn fingerprint(&self) -> String {
+        let mut hasher = Sha256::new();
+        for name in &self.feature_names {
+            hasher.update(name.as_bytes());
+            hasher.update([0u8]);
+        }
+        for i in 0..self.len() {
+            match &self.ids[i] {
+                UnitId::Int(value) => {
+                    hasher.update([1u8]);
+                    hasher.update(value.to_le_bytes());
+                }
+                UnitId::Text(value) => {
+                    hasher.update([2u8]);
+                    hasher.update((value.len() as u64).to_le_bytes());
+                    hasher.update(value.as_bytes());
+                }
+            }
+            hasher.update(self.points[i][0].to_bits().to_le_bytes());
+            hasher.update(self.points[i][1].to_bits().to_le_bytes());
+            hasher.update(self.target[i].to_bits().to_le_bytes());
+            for value in self.features_of(i) {
+                hasher.update(value.to_bits().to_le_bytes());
+            }
+        }
+        hasher.update(self.skipped.total().to_le_bytes());
+        let digest = hasher.finalize();
+        digest.iter().map(|byte| format!("{byte:02x}")).collect()
+    }
+
+    /// Bounding box of the representative points: `[min_x, min_y, max_x, max_y]`.
+    pub fn bounds(&self) -> Option<[f64; 4]> {
+        let first = self.points.first()?;
+        let mut bounds = [first[0], first[1], first[0], first[1]];
+        for point in &self.points {
+            bounds[0] = bounds[0].min(point[0]);
+            bounds[1] = bounds[1].min(point[1]);
+            bounds[2] = bounds[2].max(point[0]);
+            bounds[3] = bounds[3].max(point[1]);
+        }
+        Some(bounds)
+    }
+}
+
+/// Collects rows from an adapter and applies the input-hygiene rules.
+pub struct UnitCollector {
+    table: String,
+    target_name: String,
+    feature_names: Vec<String>,
+    strict: bool,
+    rows: Vec<(UnitId, [f64; 2], f64)>,
+    features: Vec<f64>,
+    skipped: SkipCounts,
+    strict_problems: Vec<(Location, String)>,
+    rows_read: u64,
+    id_kind: Option<IdKind>,
+    geometry_kinds: GeometryKinds,
+}
+
+impl UnitCollector {
+    /// A collector for `table` (as the user named it) with these columns.
+    /// With `strict`, every row that would be skipped becomes an error instead.
+    pub fn new(
+        table: &str,
+        target_name: &str,
+        feature_names: &[String],
+        strict: bool,
+    ) -> UnitCollector {
+        UnitCollector {
+            table: table.to_string(),
+            target_name: target_name.to_string(),
+            feature_names: feature_names.to_vec(),
+            strict,
+            rows: Vec::new(),
+            features: Vec::new(),
+            skipped: SkipCounts::default(),
+            strict_problems: Vec::new(),
+            rows_read: 0,
+            id_kind: None,
+            geometry_kinds: GeometryKinds::default(),
+        }
+    }
+
+    /// Reserve room for `n` rows (an adapter that knows the row count saves reallocations).
+    pub fn reserve(&mut self, n: usize) {
+        self.rows.reserve(n);
+        self.features.reserve(n * self.feature_names.len());
+    }
+
+    /// Adds one source row. `features` has one entry per feature column.
+    ///
+    /// # Errors
+    /// A geometry whose representative point cannot be computed (e.g. a line
+    /// with no length and no coordinates) is an input error naming the row.
+    pub fn push(
+        &mut self,
+        id: UnitId,
+        geometry: RawGeometry,
+        target: Option<f64>,
+        features: &[Option<f64>],
+    ) -> Result<(), Error> {
+        self.rows_read += 1;
+        let kind = match id {
+            UnitId::Int(_) => IdKind::Integer,
+            UnitId::Text(_) => IdKind::Text,
+        };
+        self.id_kind.get_or_insert(kind);
+        let geometry = match geometry {
+            RawGeometry::Null => {
+                self.skip(&id, None, "NULL geometry", |counts| counts.no_geometry += 1);
+                return Ok(());
+            }
+            RawGeometry::Decoded(geometry) => geometry,
+        };
+        let point = match representative_point(&geometry) {
+            Some(point) => point,
+            None => {
+                self.skip(&id, None, "empty geometry", |counts| {
+                    counts.empty_geometry += 1
+                });
+                return Ok(());
+            }
+        };
+        let target = match target {
+            Some(value) if value.is_finite() => value,
+            _ => {
+                let column = self.target_name.clone();
+                self.skip(
+                    &id,
+                    Some(&column),
+                    "target is NULL, NaN or infinite",
+                    |counts| counts.missing_target += 1,
+                );
+                return Ok(());
+            }
+        };
+        if let Some(index) = features
+            .iter()
+            .position(|value| !matches!(value, Some(v) if v.is_finite()))
+        {
+            let column = self.feature_names[index].clone();
+            self.skip(
+                &id,
+                Some(&column),
+                "feature is NULL, NaN or infinite",
+                |counts| *counts.missing_feature.entry(column.clone()).or_insert(0) += 1,
+            );
+            return Ok(());
+        }
+        match geometry {
+            Geometry::Point(_) | Geometry::MultiPoint(_) => self.geometry_kinds.points = true,
+            Geometry::Polygon(_)
+            | Geometry::MultiPolygon(_)
+            | Geometry::Rect(_)
+            | Geometry::Triangle(_) => self.geometry_kinds.polygons = true,
+            _ => self.geometry_kinds.other = true,
+        }
+        self.rows.push((id, point, target));
+        self.features
+            .extend(features.iter().map(|value| value.unwrap_or(f64::NAN)));
+        Ok(())
+    }
+
+    fn skip(
+        &mut self,
+        id: &UnitId,
+        column: Option<&str>,
+        problem: &str,
+        count: impl FnOnce(&mut SkipCounts),
+    ) {
+        count(&mut self.skipped);
+        if self.strict {
+            self.strict_problems.push((
+                Location {
+                    table: self.table.clone(),
+                    column: column.map(str::to_string),
+                    row_id: Some(id.to_string()),
+                },
+                format!("{problem} (--strict forbids skipping rows)"),
+            ));
+        }
+    }
+
+    /// Sorts by id, checks id uniqueness and returns the dataset.
+    ///
+    /// # Errors
+    /// Duplicate ids (every one is listed), rows skipped under `strict`, mixed
+    /// integer and text ids.
+    pub fn finish(self, id_column: &str) -> Result<Dataset, Error> {
+        if !self.strict_problems.is_empty() {
+            return Err(Error::Input {
+                problems: self.strict_problems,
+            });
+        }
+        let m = self.feature_names.len();
+        let mut order: Vec<usize> = (0..self.rows.len()).collect();
+        order.sort_by(|&a, &b| self.rows[a].0.cmp(&self.rows[b].0));
+        let mut problems = Vec::new();
+        for pair in order.windows(2) {
+            if self.rows[pair[0]].0 == self.rows[pair[1]].0 {
+                problems.push((
+                    Location {
+                        table: self.table.clone(),
+                        column: Some(id_column.to_string()),
+                        row_id: Some(self.rows[pair[0]].0.to_string()),
+                    },
+                    "duplicate id: ids must be unique".to_string(),
+                ));
+            }
+        }
+        if !problems.is_empty() {
+            problems.dedup();
+            return Err(Error::Input { problems });
+        }
+        let mut ids = Vec::with_capacity(order.len());
+        let mut points = Vec::with_capacity(order.len());
+        let mut target = Vec::with_capacity(order.len());
+        let mut features = Vec::with_capacity(order.len() * m);
+        let mut rows: Vec<Option<(UnitId, [f64; 2], f64)>> =
+            self.rows.into_iter().map(Some).collect();
+        for &index in &order {
+            if let Some((id, point, value)) = rows[index].take() {
+                ids.push(id);
+                points.push(point);
+                target.push(value);
+                features.extend_from_slice(&self.features[index * m..(index + 1) * m]);
+            }
+        }
+        Ok(Dataset {
+            ids,
+            points,
+            target,
+            features,
+            feature_names: self.feature_names,
+            id_kind: self.id_kind.unwrap_or(IdKind::Integer),
+            geometry_kinds: self.geometry_kinds,
+            rows_read: self.rows_read,
+            skipped: self.skipped,
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use geo_types::{point, polygon};
+
+    fn square(x: f64, y: f64) -> RawGeometry {
+        RawGeometry::Decoded(Geometry::Polygon(polygon![
+            (x: x, y: y), (x: x + 1.0, y: y), (x: x + 1.0, y: y + 1.0), (x: x, y: y + 1.0), (x: x, y: y)
+        ]))
+    }
+
+    fn names() -> Vec<String> {
+        vec!["a".to_string(), "b".to_string()]
+    }
+
+    #[test]
+    fn skips_are_counted_by_first_reason() {
+        let mut collector = UnitCollector::new("t", "y", &names(), false);
+        collector
+            .push(
+                UnitId::Int(1),
+                square(0.0, 0.0),
+                Some(1.0),
+                &[Some(1.0), Some(2.0)],
+            )
+            .unwrap();
+        collector
+            .push(UnitId::Int(2), RawGeometry::Null, None, &[None, None])
+            .unwrap();
+        collector
+            .push(
+                UnitId::Int(3),
+                square(0.0, 0.0),
+                Some(f64::NAN),
+                &[Some(1.0), Some(2.0)],
+            )
+            .unwrap();
+        collector
+            .push(
+                UnitId::Int(4),
+                square(0.0, 0.0),
+                Some(1.0),
+                &[Some(1.0), Some(f64::INFINITY)],
+            )
+            .unwrap();
+        collector
+            .push(
+                UnitId::Int(5),
+                RawGeometry::Decoded(Geometry::Polygon(geo_types::Polygon::new(
+                    geo_types::LineString::new(vec![]),
+                    vec![],
+                ))),
+                Some(1.0),
+                &[Some(1.0), Some(1.0)],
+            )
+            .unwrap();
+        let dataset = collector.finish("id").unwrap();
+        assert_eq!(dataset.len(), 1);
+        assert_eq!(dataset.rows_read, 5);
+        assert_eq!(dataset.skipped.no_geometry, 1);
+        assert_eq!(dataset.skipped.empty_geometry, 1);
+        assert_eq!(dataset.skipped.missing_target, 1);
+        assert_eq!(dataset.skipped.missing_feature.get("b"), Some(&1));
+        assert_eq!(dataset.skipped.total(), 4);
+    }
+
+    #[test]
+    fn strict_turns_skips_into_errors_naming_rows() {
+        let mut collector = UnitCollector::new("t", "y", &names(), true);
+        collector
+            .push(
+                UnitId::Int(7),
+                square(0.0, 0.0),
+                None,
+                &[Some(1.0), Some(2.0)],
+            )
+            .unwrap();
+        collector
+            .push(
+                UnitId::Int(8),
+                square(0.0, 0.0),
+                Some(1.0),
+                &[None, Some(2.0)],
+            )
+            .unwrap();
+        let error = collector.finish("id").unwrap_err();
+        let text = error.to_string();
+        assert!(text.contains("t.y (row id=7)"), "{text}");
+        assert!(text.contains("t.a (row id=8)"), "{text}");
+        assert_eq!(error.exit_code(), crate::error::exit::DATA);
+    }
+
+    #[test]
+    fn duplicate_ids_are_listed() {
+        let mut collector = UnitCollector::new("t", "y", &names(), false);
+        for id in [3, 1, 3, 2, 1] {
+            collector
+                .push(
+                    UnitId::Int(id),
+                    square(0.0, 0.0),
+                    Some(1.0),
+                    &[Some(1.0), Some(2.0)],
+                )
+                .unwrap();
+        }
+        let text = collector.finish("gid").unwrap_err().to_string();
+        assert!(
+            text.contains("t.gid (row id=1)") && text.contains("t.gid (row id=3)"),
+            "{text}"
+        );
+    }
+
+    #[test]
+    fn order_of_rows_does_not_change_dataset_or_fingerprint() {
+        let build = |ids: &[i64]| {
+            let mut collector = UnitCollector::new("t", "y", &names(), false);
+            for &id in ids {
+                let value = id as f64;
+                collector
+                    .push(
+                        UnitId::Int(id),
+                        RawGeometry::Decoded(Geometry::Point(point!(x: value, y: 2.0 * value))),
+                        Some(value),
+                        &[Some(value), Some(-value)],
+                    )
+                    .unwrap();
+            }
+            collector.finish("id").unwrap()
+        };
+        let a = build(&[5, 1, 4, 2, 3]);
+        let b = build(&[1, 2, 3, 4, 5]);
+        assert_eq!(a.ids, b.ids);
+        assert_eq!(a.features, b.features);
+        assert_eq!(a.fingerprint(), b.fingerprint());
+        assert_eq!(a.features_of(0), &[1.0, -1.0]);
+        assert!(a.geometry_kinds.points && !a.geometry_kinds.polygons);
+    }
+}

@@ -1,0 +1,260 @@
+//! The one error type of geofold and its mapping to exit codes.
+//!
+//! Every variant says *where* the problem is (table, column, row id, fold, file),
+//! because the people who read these messages are analysts and schedulers, not
+//! the authors. Exit codes follow sysexits(3) where one fits; they are a contract
+//! documented in the README and in `geofold --help`.
+
+use std::fmt;
+
+/// Exit codes. Schedulers act on these, so they never change meaning.
+pub mod exit {
+    /// Everything worked.
+    pub const OK: i32 = 0;
+    /// Usage error: bad flags or arguments (EX_USAGE).
+    pub const USAGE: i32 = 64;
+    /// Bad input data: duplicate ids, a skipped row under `--strict`, an unfittable fold (EX_DATAERR).
+    pub const DATA: i32 = 65;
+    /// The source table, schema, column, file or layer does not exist (EX_NOINPUT).
+    pub const NO_INPUT: i32 = 66;
+    /// The database server cannot be reached, or PostGIS is missing (EX_UNAVAILABLE).
+    pub const UNAVAILABLE: i32 = 69;
+    /// An internal error: a bug in geofold (EX_SOFTWARE).
+    pub const SOFTWARE: i32 = 70;
+    /// The output file or table cannot be created (EX_CANTCREAT).
+    pub const CANT_CREATE: i32 = 73;
+    /// Reading or writing a file failed (EX_IOERR).
+    pub const IO: i32 = 74;
+    /// A temporary failure: connection lost, lock or statement timeout; retry later (EX_TEMPFAIL).
+    pub const TEMPFAIL: i32 = 75;
+    /// Permission denied by the server or the file system (EX_NOPERM).
+    pub const NO_PERMISSION: i32 = 77;
+    /// A bad connection string or configuration (EX_CONFIG).
+    pub const CONFIG: i32 = 78;
+}
+
+/// Where in the input a problem sits: `table.column` and, when known, the row id.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Location {
+    /// The table, layer or file, as the user named it.
+    pub table: String,
+    /// The column at fault, if one is.
+    pub column: Option<String>,
+    /// The value of the id column of the row at fault, if one is.
+    pub row_id: Option<String>,
+}
+
+impl fmt::Display for Location {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}", self.table)?;
+        if let Some(column) = &self.column {
+            write!(f, ".{column}")?;
+        }
+        if let Some(row_id) = &self.row_id {
+            write!(f, " (row id={row_id})")?;
+        }
+        Ok(())
+    }
+}
+
+/// Everything that can stop a geofold run.
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    /// The command line does not make sense.
+    #[error("usage: {0}")]
+    Usage(String),
+    /// A connection string or configuration value is wrong.
+    #[error("configuration: {0}")]
+    Config(String),
+    /// The named table, schema, column, file or layer does not exist.
+    #[error("not found: {what}")]
+    NotFound {
+        /// What is missing, e.g. `column "rain" of table public.catchments`.
+        what: String,
+    },
+    /// The input data cannot be used as they are. Lists every problem found.
+    #[error("bad input: {}", format_problems(problems))]
+    Input {
+        /// One entry per problem, each naming its location.
+        problems: Vec<(Location, String)>,
+    },
+    /// A fold cannot be fitted by the model.
+    #[error("cannot fit fold {fold} (repetition {repetition}) with {model}: {problem}")]
+    Fit {
+        /// Fold number, 1-based as shown to users.
+        fold: u32,
+        /// Repetition number, 1-based.
+        repetition: u32,
+        /// The model family.
+        model: String,
+        /// What is wrong, naming the features involved.
+        problem: String,
+    },
+    /// The fold scheme cannot be built on these units with these options.
+    #[error("cannot build folds: {0}")]
+    Folds(String),
+    /// The server could not be reached or is missing something it needs.
+    #[error("database unavailable while {action}: {source}")]
+    Unavailable {
+        /// What geofold was doing.
+        action: String,
+        /// The underlying error.
+        source: Box<dyn std::error::Error + Send + Sync>,
+    },
+    /// A database statement failed.
+    #[error("database error while {action}: {message}")]
+    Database {
+        /// What geofold was doing.
+        action: String,
+        /// The server's message.
+        message: String,
+        /// The SQLSTATE, when the server gave one.
+        sqlstate: Option<String>,
+    },
+    /// A GeoPackage or other file problem.
+    #[error("{path}: {problem}")]
+    File {
+        /// The file.
+        path: String,
+        /// What went wrong; names layer and row id where known.
+        problem: String,
+        /// The exit code that fits (66 missing, 65 bad content, 73 cannot create, 74 I/O, 75 locked).
+        code: i32,
+    },
+    /// The results store already holds results of another kind (id type or SRID).
+    #[error("results store {store}: {problem}")]
+    Store {
+        /// The schema or file.
+        store: String,
+        /// What conflicts.
+        problem: String,
+    },
+    /// A bug in geofold.
+    #[error("internal error: {0}")]
+    Internal(String),
+}
+
+fn format_problems(problems: &[(Location, String)]) -> String {
+    let shown: Vec<String> = problems
+        .iter()
+        .take(20)
+        .map(|(location, problem)| format!("{location}: {problem}"))
+        .collect();
+    let mut text = shown.join("; ");
+    if problems.len() > shown.len() {
+        text.push_str(&format!("; and {} more", problems.len() - shown.len()));
+    }
+    text
+}
+
+impl Error {
+    /// One bad-input problem at one location.
+    pub fn input(
+        table: &str,
+        column: Option<&str>,
+        row_id: Option<String>,
+        problem: impl Into<String>,
+    ) -> Error {
+        Error::Input {
+            problems: vec![(
+                Location {
+                    table: table.to_string(),
+                    column: column.map(str::to_string),
+                    row_id,
+                },
+                problem.into(),
+            )],
+        }
+    }
+
+    /// The exit code a scheduler sees for this error.
+    pub fn exit_code(&self) -> i32 {
+        match self {
+            Error::Usage(_) => exit::USAGE,
+            Error::Config(_) => exit::CONFIG,
+            Error::NotFound { .. } => exit::NO_INPUT,
+            Error::Input { .. } | Error::Fit { .. } | Error::Folds(_) | Error::Store { .. } => {
+                exit::DATA
+            }
+            Error::Unavailable { .. } => exit::UNAVAILABLE,
+            Error::Database { sqlstate, .. } => database_exit_code(sqlstate.as_deref()),
+            Error::File { code, .. } => *code,
+            Error::Internal(_) => exit::SOFTWARE,
+        }
+    }
+
+    /// A short machine-readable kind for `--json` error objects.
+    pub fn kind(&self) -> &'static str {
+        match self {
+            Error::Usage(_) => "usage",
+            Error::Config(_) => "config",
+            Error::NotFound { .. } => "not_found",
+            Error::Input { .. } => "input",
+            Error::Fit { .. } => "fit",
+            Error::Folds(_) => "folds",
+            Error::Unavailable { .. } => "unavailable",
+            Error::Database { .. } => "database",
+            Error::File { .. } => "file",
+            Error::Store { .. } => "store",
+            Error::Internal(_) => "internal",
+        }
+    }
+}
+
+/// Maps a SQLSTATE to an exit code (ECOSYSTEM §4.2 of the project notes).
+fn database_exit_code(sqlstate: Option<&str>) -> i32 {
+    match sqlstate {
+        Some(code) if code.starts_with("08") => exit::UNAVAILABLE,
+        Some("57014" | "55P03" | "40001" | "40P01" | "57P01" | "53300") => exit::TEMPFAIL,
+        Some("42501" | "28P01" | "28000") => exit::NO_PERMISSION,
+        Some("42P01" | "42703" | "3F000") => exit::NO_INPUT,
+        Some("22023" | "22P02" | "XX000") => exit::DATA,
+        // The connection dropped without a server error.
+        None => exit::TEMPFAIL,
+        _ => exit::SOFTWARE,
+    }
+}
+
+/// Shorthand used throughout the crate.
+pub type Result<T, E = Error> = std::result::Result<T, E>;
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn location_names_table_column_and_row() {
+        let error = Error::input("public.parcels", Some("yield"), Some("17".into()), "NULL");
+        assert_eq!(
+            error.to_string(),
+            "bad input: public.parcels.yield (row id=17): NULL"
+        );
+        assert_eq!(error.exit_code(), exit::DATA);
+    }
+
+    #[test]
+    fn long_problem_lists_are_cut_with_a_count() {
+        let problems = (0..25)
+            .map(|i| {
+                (
+                    Location {
+                        table: "t".into(),
+                        column: None,
+                        row_id: Some(i.to_string()),
+                    },
+                    "duplicate id".to_string(),
+                )
+            })
+            .collect();
+        let text = Error::Input { problems }.to_string();
+        assert!(text.ends_with("; and 5 more"), "{text}");
+    }
+
+    #[test]
+    fn sqlstates_map_to_scheduler_codes() {
+        assert_eq!(database_exit_code(Some("08006")), exit::UNAVAILABLE);
+        assert_eq!(database_exit_code(Some("55P03")), exit::TEMPFAIL);
+        assert_eq!(database_exit_code(Some("42501")), exit::NO_PERMISSION);
+        assert_eq!(database_exit_code(Some("42P01")), exit::NO_INPUT);
+    }
+}
