@@ -1,0 +1,96 @@
+//! Shared helpers for the integration tests: the throwaway PostGIS that
+//! `scripts/test.sh` starts, the geofold binary, scratch directories.
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+use std::sync::atomic::{AtomicUsize, Ordering};
+
+/// The test database URI. Integration tests need the PostGIS that
+/// `bash scripts/test.sh` starts; without it they fail rather than pass unseen.
+pub fn db_uri() -> String {
+    std::env::var("GEOFOLD_TEST_DB")
+        .expect("GEOFOLD_TEST_DB is not set: run the suite with `bash scripts/test.sh`, which starts PostGIS")
+}
+
+static COUNTER: AtomicUsize = AtomicUsize::new(0);
+
+/// A schema name unique to this test process and call, e.g. `t_1234_7_bad_ids`.
+pub fn unique_name(label: &str) -> String {
+    format!("t_{}_{}_{label}", std::process::id(), COUNTER.fetch_add(1, Ordering::SeqCst))
+}
+
+/// Runs SQL through psql (ON_ERROR_STOP) and returns stdout (unaligned, tuples only,
+/// fields separated by `|`). Panics with psql's stderr on failure.
+pub fn psql(sql: &str) -> String {
+    let output = Command::new("psql")
+        .arg(db_uri())
+        .args(["-X", "-q", "-A", "-t", "-v", "ON_ERROR_STOP=1", "-c", sql])
+        .output()
+        .expect("psql runs");
+    assert!(output.status.success(), "psql failed on {sql}:\n{}", String::from_utf8_lossy(&output.stderr));
+    String::from_utf8_lossy(&output.stdout).trim_end().to_string()
+}
+
+/// Runs a SQL script (several statements) through psql.
+pub fn psql_script(sql: &str) {
+    let output = Command::new("psql")
+        .arg(db_uri())
+        .args(["-X", "-q", "-v", "ON_ERROR_STOP=1"])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .and_then(|mut child| {
+            use std::io::Write;
+            child.stdin.take().expect("stdin").write_all(sql.as_bytes())?;
+            child.wait_with_output()
+        })
+        .expect("psql runs");
+    assert!(output.status.success(), "psql script failed:\n{}", String::from_utf8_lossy(&output.stderr));
+}
+
+/// A scratch directory removed at drop.
+pub struct Workdir {
+    pub dir: tempfile::TempDir,
+}
+
+impl Workdir {
+    pub fn new() -> Workdir {
+        Workdir { dir: tempfile::tempdir().expect("scratch dir") }
+    }
+
+    pub fn path(&self, name: &str) -> PathBuf {
+        self.dir.path().join(name)
+    }
+
+    pub fn root(&self) -> &Path {
+        self.dir.path()
+    }
+
+    /// The geofold binary, run in this directory.
+    pub fn geofold(&self) -> Command {
+        let mut command = Command::new(env!("CARGO_BIN_EXE_geofold"));
+        command.current_dir(self.dir.path());
+        command.env("NO_COLOR", "1");
+        command
+    }
+}
+
+/// Runs and returns the output; prints stderr when the test fails later.
+pub fn run(mut command: Command) -> Output {
+    let output = command.output().expect("geofold runs");
+    eprintln!("stderr: {}", String::from_utf8_lossy(&output.stderr));
+    output
+}
+
+/// The exit code (panics on a signal).
+pub fn code(output: &Output) -> i32 {
+    output.status.code().expect("exited normally")
+}
+
+/// Parses stdout as JSON.
+pub fn json(output: &Output) -> serde_json::Value {
+    serde_json::from_slice(&output.stdout)
+        .unwrap_or_else(|e| panic!("stdout is not JSON ({e}):\n{}", String::from_utf8_lossy(&output.stdout)))
+}
