@@ -262,6 +262,7 @@ pub fn execute(
     store.prepare(&info)?;
     store.begin(&info, &records)?;
     let result: Result<Summary, Error> = (|| {
+        let clock = std::time::Instant::now();
         let mut collector = UnitCollector::new(
             &info.table,
             &info.target_column,
@@ -273,12 +274,16 @@ pub fn execute(
         tracing::info!(
             units = dataset.len(),
             skipped = dataset.skipped.total(),
+            elapsed_ms = clock.elapsed().as_millis() as u64,
             "read units"
         );
+        let clock = std::time::Instant::now();
         let outcomes = plans
             .iter()
             .map(|plan| cross_validate(&dataset, plan, model.as_ref()))
             .collect::<Result<Vec<RunOutcome>, Error>>()?;
+        tracing::info!(elapsed_ms = clock.elapsed().as_millis() as u64, "validated");
+        let clock = std::time::Instant::now();
         let finished: Vec<FinishedRun<'_>> = records
             .iter()
             .zip(&plans)
@@ -290,6 +295,10 @@ pub fn execute(
             })
             .collect();
         let report = store.commit(&info, &dataset, &finished)?;
+        tracing::info!(
+            elapsed_ms = clock.elapsed().as_millis() as u64,
+            "wrote results"
+        );
         Ok(Summary::new(&info, &dataset, &records, &outcomes, report))
     })();
     if let Err(error) = &result {

@@ -109,53 +109,11 @@ pub fn cross_validate(
         let mut rng = FoldRng::new(plan.seed, repetition);
         let assignment = plan.scheme.assign(dataset, &mut rng)?;
         let mut predicted = vec![f64::NAN; n];
-        let mut train = Vec::with_capacity(n);
-        let mut test = Vec::new();
-        for fold in 0..assignment.k {
-            train.clear();
-            test.clear();
-            for (unit, &unit_fold) in assignment.fold_of.iter().enumerate() {
-                if unit_fold == fold {
-                    test.push(unit);
-                } else {
-                    train.push(unit);
-                }
-            }
-            let fit_error = |problem: String| Error::Fit {
-                fold: fold + 1,
-                repetition: repetition + 1,
-                model: model.name().to_string(),
-                problem,
-            };
-            let needed = model.min_training_units(dataset.n_features());
-            if train.len() < needed {
-                return Err(fit_error(format!(
-                    "{} training units, but {} with {} features ({}) needs at least {needed}",
-                    train.len(),
-                    model.name(),
-                    dataset.n_features(),
-                    dataset.feature_names.join(", ")
-                )));
-            }
-            let predictor = model
-                .fit(&TrainingSet {
-                    dataset,
-                    rows: &train,
-                })
-                .map_err(fit_error)?;
-            let mut pairs = Vec::with_capacity(test.len());
-            for &unit in &test {
-                let value = predictor.predict(dataset.features_of(unit));
+        for fold in fit_folds(dataset, &assignment, repetition, model)? {
+            for (&unit, &value) in fold.test.iter().zip(&fold.predicted) {
                 predicted[unit] = value;
-                pairs.push((dataset.target[unit], value));
             }
-            fold_scores.push(FoldScore {
-                repetition,
-                fold,
-                n_train: train.len(),
-                n_test: test.len(),
-                scores: score(&pairs),
-            });
+            fold_scores.push(fold.score);
         }
         repetitions.push(Repetition {
             assignment,
@@ -186,6 +144,131 @@ pub fn cross_validate(
         unit_errors,
         pooled,
         fold_spread,
+    })
+}
+
+/// The held-out predictions and scores of one fold.
+struct FoldResult {
+    test: Vec<usize>,
+    predicted: Vec<f64>,
+    score: FoldScore,
+}
+
+/// Fits every fold of one repetition, on as many threads as the machine has
+/// (at most one per fold). Folds are independent, so the results do not depend
+/// on the number of threads; when several folds fail, the error reported is
+/// the one of the lowest fold.
+fn fit_folds(
+    dataset: &Dataset,
+    assignment: &FoldAssignment,
+    repetition: u32,
+    model: &dyn Model,
+) -> Result<Vec<FoldResult>, Error> {
+    let k = assignment.k as usize;
+    let threads = std::thread::available_parallelism()
+        .map(|n| n.get())
+        .unwrap_or(1)
+        .min(k)
+        .max(1);
+    let next = std::sync::atomic::AtomicUsize::new(0);
+    let mut slots: Vec<Option<Result<FoldResult, Error>>> = (0..k).map(|_| None).collect();
+    std::thread::scope(|scope| {
+        let workers: Vec<_> = (0..threads)
+            .map(|_| {
+                scope.spawn(|| {
+                    let mut done = Vec::new();
+                    loop {
+                        let fold = next.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
+                        if fold >= k {
+                            break;
+                        }
+                        done.push((
+                            fold,
+                            fit_fold(dataset, assignment, fold as u32, repetition, model),
+                        ));
+                    }
+                    done
+                })
+            })
+            .collect();
+        for worker in workers {
+            // A worker that panicked leaves its folds empty: reported below.
+            if let Ok(done) = worker.join() {
+                for (fold, result) in done {
+                    slots[fold] = Some(result);
+                }
+            }
+        }
+    });
+    slots
+        .into_iter()
+        .enumerate()
+        .map(|(fold, slot)| {
+            slot.unwrap_or_else(|| {
+                Err(Error::Internal(format!("fold {} was not fitted", fold + 1)))
+            })
+        })
+        .collect()
+}
+
+fn fit_fold(
+    dataset: &Dataset,
+    assignment: &FoldAssignment,
+    fold: u32,
+    repetition: u32,
+    model: &dyn Model,
+) -> Result<FoldResult, Error> {
+    let mut train = Vec::with_capacity(dataset.len());
+    let mut test = Vec::new();
+    for (unit, &unit_fold) in assignment.fold_of.iter().enumerate() {
+        if unit_fold == fold {
+            test.push(unit);
+        } else {
+            train.push(unit);
+        }
+    }
+    let fit_error = |problem: String| Error::Fit {
+        fold: fold + 1,
+        repetition: repetition + 1,
+        model: model.name().to_string(),
+        problem,
+    };
+    let needed = model.min_training_units(dataset.n_features());
+    if train.len() < needed {
+        return Err(fit_error(format!(
+            "{} training units, but {} with {} features ({}) needs at least {needed}",
+            train.len(),
+            model.name(),
+            dataset.n_features(),
+            dataset.feature_names.join(", ")
+        )));
+    }
+    let predictor = model
+        .fit(&TrainingSet {
+            dataset,
+            rows: &train,
+        })
+        .map_err(fit_error)?;
+    let predicted: Vec<f64> = test
+        .iter()
+        .map(|&unit| predictor.predict(dataset.features_of(unit)))
+        .collect();
+    let pairs: Vec<(f64, f64)> = test
+        .iter()
+        .zip(&predicted)
+        .map(|(&unit, &value)| (dataset.target[unit], value))
+        .collect();
+    let score = FoldScore {
+        repetition,
+        fold,
+        n_train: train.len(),
+        n_test: test.len(),
+        scores: score(&pairs),
+    };
+    Ok(FoldResult {
+        test,
+        predicted,
+        score,
     })
 }
 

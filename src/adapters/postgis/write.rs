@@ -197,6 +197,17 @@ impl ResultStore for PostgisStore {
                     }
                 }
             }
+            // Summarise the BRIN ranges the COPYs just filled, so queries by run
+            // skip them at once rather than after the next VACUUM.
+            for index in ["predictions_run_brin", "unit_errors_run_brin"] {
+                let name = format!("{}.{}", quote_ident(&schema), quote_ident(index));
+                tx.execute(
+                    "SELECT brin_summarize_new_values($1::text::regclass)",
+                    &[&name],
+                )
+                .await
+                .map_err(|e| database_error("summarising the run indexes", &e))?;
+            }
             let primary = runs.iter().find(|run| run.record.primary_run_id.is_none());
             if let Some(primary) = primary {
                 for sql in job_views(&schema, &primary.record.job, info, dataset) {
@@ -245,7 +256,6 @@ impl ResultStore for PostgisStore {
 }
 
 struct TableNames {
-    fold_members: String,
     predictions: String,
     unit_errors: String,
     fold_scores: String,
@@ -258,7 +268,6 @@ impl TableNames {
     fn new(schema: &str) -> TableNames {
         let q = |table: &str| format!("{}.{}", quote_ident(schema), quote_ident(table));
         TableNames {
-            fold_members: q("fold_members"),
             predictions: q("predictions"),
             unit_errors: q("unit_errors"),
             fold_scores: q("fold_scores"),
@@ -337,33 +346,9 @@ async fn write_run(
     let n = dataset.len();
     let mut counts = Vec::new();
 
-    // fold_members and predictions: one row per unit and repetition, filled in
-    // slices so the encoder never holds more than a chunk.
+    // predictions: one row per unit and repetition, encoded in slices so the
+    // encoder never holds more than a chunk (fold_members is a view over it).
     let total = (n * outcome.repetitions.len()) as u64;
-    let mut cursor = 0usize;
-    let written = copy_in(
-        tx,
-        &names.fold_members,
-        "run_id, repetition, fold, unit_id",
-        total,
-        |encoder| {
-            let end = (cursor + 4096).min(n * outcome.repetitions.len());
-            for position in cursor..end {
-                let (repetition, unit) = (position / n, position % n);
-                encoder.row(4);
-                encoder.uuid(&run_id);
-                encoder.int4(repetition as i32 + 1);
-                encoder.int4(outcome.repetitions[repetition].assignment.fold_of[unit] as i32 + 1);
-                put_id(encoder, &dataset.ids[unit]);
-            }
-            let more = end > cursor;
-            cursor = end;
-            more
-        },
-    )
-    .await?;
-    counts.push(("fold_members".to_string(), written));
-
     let mut cursor = 0usize;
     let written = copy_in(
         tx,
@@ -396,6 +381,7 @@ async fn write_run(
     )
     .await?;
     counts.push(("predictions".to_string(), written));
+    counts.push(("fold_members".to_string(), written));
 
     let repetitions = outcome.repetitions.len() as i32;
     let mut cursor = 0usize;

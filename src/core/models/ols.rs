@@ -39,12 +39,7 @@ pub struct OlsFit {
 
 impl Predictor for OlsFit {
     fn predict(&self, features: &[f64]) -> f64 {
-        self.coefficients[0]
-            + self.coefficients[1..]
-                .iter()
-                .zip(features)
-                .map(|(b, x)| b * x)
-                .sum::<f64>()
+        predict(&self.coefficients, features)
     }
 }
 
@@ -74,22 +69,86 @@ impl Model for Ols {
         });
         let target =
             DVector::from_iterator(n, training.rows.iter().map(|&row| dataset.target[row]));
-        let fit = fit_ols(design, target, &dataset.feature_names)?;
-        Ok(Box::new(fit))
+        let solution = solve(design, &target, &dataset.feature_names)?;
+        Ok(Box::new(Coefficients(solution.coefficients)))
     }
 }
 
-/// Fits `y = Xβ` where the first column of `design` is the intercept.
-/// `feature_names` names columns 1.. for messages.
+/// Fitted coefficients, intercept first: the predictor used per fold.
+struct Coefficients(Vec<f64>);
+
+impl Predictor for Coefficients {
+    fn predict(&self, features: &[f64]) -> f64 {
+        predict(&self.0, features)
+    }
+}
+
+fn predict(coefficients: &[f64], features: &[f64]) -> f64 {
+    coefficients[0]
+        + coefficients[1..]
+            .iter()
+            .zip(features)
+            .map(|(b, x)| b * x)
+            .sum::<f64>()
+}
+
+/// The QR solution: coefficients, and what the statistics need.
+struct Solution {
+    coefficients: Vec<f64>,
+    /// The p × p upper triangle of R of the column-scaled design.
+    r_square: DMatrix<f64>,
+    /// Column norms the design was divided by.
+    scales: Vec<f64>,
+}
+
+/// Fits `y = Xβ` where the first column of `design` is the intercept, with the
+/// statistics NIST StRD certifies. `feature_names` names columns 1.. for messages.
 ///
 /// # Errors
 /// Fewer rows than columns, a constant feature, or a rank-deficient design; the
 /// message names the feature at fault.
 pub fn fit_ols(
-    mut design: DMatrix<f64>,
+    design: DMatrix<f64>,
     target: DVector<f64>,
     feature_names: &[String],
 ) -> Result<OlsFit, String> {
+    let (n, p) = design.shape();
+    let original = design.clone();
+    let solution = solve(design, &target, feature_names)?;
+    let ssr: f64 = (0..n)
+        .map(|i| {
+            let row: Vec<f64> = (1..p).map(|j| original[(i, j)]).collect();
+            (target[i] - predict(&solution.coefficients, &row)).powi(2)
+        })
+        .sum();
+    let mean = target.mean();
+    let sst: f64 = target.iter().map(|v| (v - mean).powi(2)).sum();
+    let residual_sd = if n > p {
+        (ssr / (n - p) as f64).sqrt()
+    } else {
+        f64::NAN
+    };
+    let r_inverse = solution
+        .r_square
+        .solve_upper_triangular(&DMatrix::identity(p, p))
+        .ok_or_else(|| "triangular inverse failed: the design is singular".to_string())?;
+    let standard_errors = (0..p)
+        .map(|j| residual_sd * r_inverse.row(j).norm() / solution.scales[j])
+        .collect();
+    Ok(OlsFit {
+        coefficients: solution.coefficients,
+        standard_errors,
+        residual_sd,
+        r_squared: 1.0 - ssr / sst,
+    })
+}
+
+/// Checks the design, scales its columns, factors it and solves for β.
+fn solve(
+    mut design: DMatrix<f64>,
+    target: &DVector<f64>,
+    feature_names: &[String],
+) -> Result<Solution, String> {
     let (n, p) = design.shape();
     let name = |j: usize| -> String {
         if j == 0 {
@@ -130,8 +189,6 @@ pub fn fit_ols(
         design.column_mut(j).unscale_mut(norm);
         scales.push(norm);
     }
-    let y = target.clone();
-    let scaled = design.clone();
     let qr = design.qr();
     let r = qr.r();
     let tolerance = (n.max(p) as f64) * 10.0 * f64::EPSILON;
@@ -146,36 +203,18 @@ pub fn fit_ols(
             ));
         }
     }
-    let mut qty = target;
+    let mut qty = target.clone();
     qr.q_tr_mul(&mut qty);
     let head = qty.rows(0, p).into_owned();
     let r_square = r.view((0, 0), (p, p)).into_owned();
     let scaled_beta = r_square
         .solve_upper_triangular(&head)
         .ok_or_else(|| "triangular solve failed: the design is singular".to_string())?;
-    let coefficients: Vec<f64> = (0..p).map(|j| scaled_beta[j] / scales[j]).collect();
-
-    let fitted = &scaled * &scaled_beta;
-    let residuals = &y - fitted;
-    let ssr = residuals.norm_squared();
-    let mean = y.mean();
-    let sst: f64 = y.iter().map(|v| (v - mean).powi(2)).sum();
-    let residual_sd = if n > p {
-        (ssr / (n - p) as f64).sqrt()
-    } else {
-        f64::NAN
-    };
-    let r_inverse = r_square
-        .solve_upper_triangular(&DMatrix::identity(p, p))
-        .ok_or_else(|| "triangular inverse failed: the design is singular".to_string())?;
-    let standard_errors = (0..p)
-        .map(|j| residual_sd * r_inverse.row(j).norm() / scales[j])
-        .collect();
-    Ok(OlsFit {
+    let coefficients = (0..p).map(|j| scaled_beta[j] / scales[j]).collect();
+    Ok(Solution {
         coefficients,
-        standard_errors,
-        residual_sd,
-        r_squared: 1.0 - ssr / sst,
+        r_square,
+        scales,
     })
 }
 
