@@ -30,7 +30,7 @@ chmod 777 "$WORK"
 trap 'rm -rf "$WORK"; [ -n "${PGDIR:-}" ] && bash scripts/pg-throwaway.sh stop "$PGDIR" >/dev/null 2>&1 || true' EXIT
 cargo build --release --locked -q
 BIN=$here/target/release/geofold
-q() { psql "$URI" -X -q -v ON_ERROR_STOP=1 "$@"; }
+q() { PGOPTIONS="-c client_min_messages=warning" psql "$URI" -X -q -v ON_ERROR_STOP=1 "$@"; }
 
 side=$(python3 -c "import math; print(math.ceil(math.sqrt($N)))")
 echo "building bench.units: $N polygons (octagons on a ${side}-wide lattice), 4 features" >&2
