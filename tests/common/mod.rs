@@ -17,7 +17,11 @@ static COUNTER: AtomicUsize = AtomicUsize::new(0);
 
 /// A schema name unique to this test process and call, e.g. `t_1234_7_bad_ids`.
 pub fn unique_name(label: &str) -> String {
-    format!("t_{}_{}_{label}", std::process::id(), COUNTER.fetch_add(1, Ordering::SeqCst))
+    format!(
+        "t_{}_{}_{label}",
+        std::process::id(),
+        COUNTER.fetch_add(1, Ordering::SeqCst)
+    )
 }
 
 /// Runs SQL through psql (ON_ERROR_STOP) and returns stdout (unaligned, tuples only,
@@ -28,8 +32,14 @@ pub fn psql(sql: &str) -> String {
         .args(["-X", "-q", "-A", "-t", "-v", "ON_ERROR_STOP=1", "-c", sql])
         .output()
         .expect("psql runs");
-    assert!(output.status.success(), "psql failed on {sql}:\n{}", String::from_utf8_lossy(&output.stderr));
-    String::from_utf8_lossy(&output.stdout).trim_end().to_string()
+    assert!(
+        output.status.success(),
+        "psql failed on {sql}:\n{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    String::from_utf8_lossy(&output.stdout)
+        .trim_end()
+        .to_string()
 }
 
 /// Runs a SQL script (several statements) through psql.
@@ -43,11 +53,19 @@ pub fn psql_script(sql: &str) {
         .spawn()
         .and_then(|mut child| {
             use std::io::Write;
-            child.stdin.take().expect("stdin").write_all(sql.as_bytes())?;
+            child
+                .stdin
+                .take()
+                .expect("stdin")
+                .write_all(sql.as_bytes())?;
             child.wait_with_output()
         })
         .expect("psql runs");
-    assert!(output.status.success(), "psql script failed:\n{}", String::from_utf8_lossy(&output.stderr));
+    assert!(
+        output.status.success(),
+        "psql script failed:\n{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
 }
 
 /// A scratch directory removed at drop.
@@ -57,7 +75,9 @@ pub struct Workdir {
 
 impl Workdir {
     pub fn new() -> Workdir {
-        Workdir { dir: tempfile::tempdir().expect("scratch dir") }
+        Workdir {
+            dir: tempfile::tempdir().expect("scratch dir"),
+        }
     }
 
     pub fn path(&self, name: &str) -> PathBuf {
@@ -91,6 +111,44 @@ pub fn code(output: &Output) -> i32 {
 
 /// Parses stdout as JSON.
 pub fn json(output: &Output) -> serde_json::Value {
-    serde_json::from_slice(&output.stdout)
-        .unwrap_or_else(|e| panic!("stdout is not JSON ({e}):\n{}", String::from_utf8_lossy(&output.stdout)))
+    serde_json::from_slice(&output.stdout).unwrap_or_else(|e| {
+        panic!(
+            "stdout is not JSON ({e}):\n{}",
+            String::from_utf8_lossy(&output.stdout)
+        )
+    })
+}
+
+/// Checks that `schema.layer` is a layer QGIS lists with no hand work: registered in
+/// geometry_columns with `geometry_type` and `srid` (so its geometry column has a
+/// type modifier), and its first column `key` an integer unique over its `rows` rows.
+pub fn check_qgis_layer(
+    schema: &str,
+    layer: &str,
+    key: &str,
+    geometry_type: &str,
+    srid: i32,
+    rows: usize,
+) {
+    assert_eq!(
+        psql(&format!(
+            "SELECT type, srid FROM geometry_columns WHERE f_table_schema = '{schema}' AND f_table_name = '{layer}'"
+        )),
+        format!("{geometry_type}|{srid}"),
+        "{schema}.{layer} in geometry_columns"
+    );
+    assert_eq!(
+        psql(&format!(
+            "SELECT attname, atttypid::regtype FROM pg_attribute WHERE attrelid = '{schema}.{layer}'::regclass AND attnum = 1"
+        )),
+        format!("{key}|integer"),
+        "first column of {schema}.{layer}"
+    );
+    assert_eq!(
+        psql(&format!(
+            "SELECT count(*), count(DISTINCT {key}) FROM {schema}.{layer}"
+        )),
+        format!("{rows}|{rows}"),
+        "{key} is unique in {schema}.{layer}"
+    );
 }
