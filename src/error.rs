@@ -209,6 +209,12 @@ fn database_exit_code(sqlstate: Option<&str>) -> i32 {
         Some("42501" | "28P01" | "28000") => exit::NO_PERMISSION,
         Some("42P01" | "42703" | "3F000") => exit::NO_INPUT,
         Some("22023" | "22P02" | "XX000") => exit::DATA,
+        // Disk full, out of memory, too many connections: retry later.
+        Some(code) if code.starts_with("53") => exit::TEMPFAIL,
+        // A server-side rule (a trigger's RAISE, a constraint) rejected the data.
+        Some(code) if code.starts_with("P0") || code.starts_with("23") => exit::DATA,
+        // An object in the way of one geofold creates (e.g. a table named like the job view).
+        Some("42P07" | "42710" | "42809") => exit::CANT_CREATE,
         // The connection dropped without a server error.
         None => exit::TEMPFAIL,
         _ => exit::SOFTWARE,
@@ -256,5 +262,8 @@ mod tests {
         assert_eq!(database_exit_code(Some("55P03")), exit::TEMPFAIL);
         assert_eq!(database_exit_code(Some("42501")), exit::NO_PERMISSION);
         assert_eq!(database_exit_code(Some("42P01")), exit::NO_INPUT);
+        assert_eq!(database_exit_code(Some("P0001")), exit::DATA);
+        assert_eq!(database_exit_code(Some("53100")), exit::TEMPFAIL);
+        assert_eq!(database_exit_code(Some("42809")), exit::CANT_CREATE);
     }
 }

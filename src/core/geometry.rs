@@ -4,8 +4,9 @@
 //! A unit's representative point is its centroid (area-weighted for polygons,
 //! as PostGIS `ST_Centroid`). Where a polygon's centroid does not lie in the
 //! polygon's interior (C shapes, rings, multipolygons with far-apart parts), the
-//! point is instead an interior point computed like PostGIS `ST_PointOnSurface`
-//! (geo's `InteriorPoint`, which follows the JTS interior-point algorithm), so a
+//! point is instead an interior point: geo's `InteriorPoint`, which follows the
+//! JTS interior-point algorithm as PostGIS `ST_PointOnSurface` does, though the
+//! two need not return the same point. Either way a
 //! unit is always placed in a block that it actually touches. Points and other
 //! geometries use their centroid. Empty geometries, and points with NaN
 //! coordinates (the GeoPackage encoding of an empty point), have no

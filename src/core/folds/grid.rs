@@ -78,7 +78,7 @@ pub fn assign(
     }
     if counts.len() < k as usize {
         return Err(Error::Folds(format!(
-            "blocks of {} units hold the {} units in only {} occupied blocks, fewer than the {k} folds; use a smaller --block-size or fewer --folds",
+            "blocks of side {} hold the {} units in only {} occupied blocks, fewer than the {k} folds; use a smaller --block-size or fewer --folds",
             params.block_size,
             dataset.len(),
             counts.len()
