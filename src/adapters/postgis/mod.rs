@@ -4,7 +4,7 @@
 //! - [`connect`]: libpq-style connection parameters.
 //! - [`copy`]: the binary COPY format.
 //! - [`read`]: inspecting and streaming the source table.
-//! - [`write`]: the results schema, its migrations, and writing runs.
+//! - [`write`](mod@write): the results schema, its migrations, and writing runs.
 
 pub mod connect;
 pub mod copy;
