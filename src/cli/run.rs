@@ -106,7 +106,8 @@ pub struct ValidationArgs {
 /// Where the results go.
 #[derive(Debug, Clone, Args)]
 pub struct OutputArgs {
-    /// Job label: names the run history and the per-unit view/layer. Default: the table name.
+    /// Job label: names the run history and the per-unit view/layer. Default: the table name;
+    /// for results written into the source GeoPackage, the layer name with _cv appended.
     #[arg(long)]
     pub job: Option<String>,
     /// PostGIS schema for results (created when missing).
@@ -184,11 +185,25 @@ pub fn run(args: &RunArgs) -> Result<Summary, Error> {
             &args.output.results_schema,
         )),
     };
+    // Results written into the source GeoPackage share its namespace: a job
+    // named like the layer would have its per-unit layer replace the source.
+    let job = match (
+        &args.output.job,
+        &args.source.gpkg,
+        &args.output.results_gpkg,
+    ) {
+        (None, Some(_), None) => {
+            let mut layer = default_job(&source.info().table);
+            layer.truncate(57);
+            Some(format!("{layer}_cv"))
+        }
+        (job, _, _) => job.clone(),
+    };
     execute(
         source.as_mut(),
         store.as_mut(),
         &args.validation,
-        args.output.job.as_deref(),
+        job.as_deref(),
         args.source.strict,
     )
 }
@@ -211,9 +226,16 @@ pub fn execute(
         && info.geographic
         && info.srid == info.source_srid
     {
+        // A GeoPackage has no PostGIS to transform with (run() refuses
+        // --distance-srid for it), so the file must be reprojected first.
+        let fix = if info.store == "gpkg" {
+            "reproject the layer to a projected CRS in metres first (for example \
+             ogr2ogr -t_srs EPSG:N out.gpkg in.gpkg LAYER), or use --scheme random"
+        } else {
+            "pass --distance-srid N with a projected CRS in metres (PostGIS transforms the geometries)"
+        };
         return Err(Error::Usage(format!(
-            "{}.{} has SRID {}, a longitude/latitude CRS (degrees), but --block-size is in metres; \
-             pass --distance-srid N with a projected CRS in metres (PostGIS transforms the geometries)",
+            "{}.{} has SRID {}, a longitude/latitude CRS (degrees), but --block-size is in metres; {fix}",
             info.table, info.geom_column, info.source_srid
         )));
     }

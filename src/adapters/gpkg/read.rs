@@ -1,0 +1,609 @@
+//! Opening and streaming a GeoPackage feature table.
+//!
+//! Opening checks, before anything is written anywhere, that the file is a
+//! GeoPackage, that the layer is a registered feature table with a geometry
+//! column (`gpkg_contents`, `gpkg_geometry_columns`) whose SRS is in
+//! `gpkg_spatial_ref_sys`, that every named column exists (all missing ones
+//! are listed) with a usable declared type, and then scans every row once:
+//! SQLite is dynamically typed, so a TEXT value in a REAL column, a NULL id, a
+//! blob that is not GeoPackageBinary, a truncated WKB or a blob with another
+//! SRS id (Requirement 33) is found here and reported with the row id, every
+//! problem at once. Reading then streams the same rows into the collector,
+//! decoding each WKB body with geozero; no geometry is kept.
+//!
+//! # Geographic SRS
+//! An SRS counts as longitude/latitude when its definition is a WKT
+//! `GEOGCS`/`GEOGCRS`, when it is an EPSG geographic 2D code in
+//! [`GEOGRAPHIC_EPSG`], or when it is `srs_id` 0 ("undefined geographic",
+//! clause 1.1.2.1.2). There is no PostGIS here to transform, so the pipeline
+//! refuses block sizes in metres on such a layer and says how to reproject it.
+
+use std::path::{Path, PathBuf};
+
+use geo_types::{Geometry, GeometryCollection};
+use geozero::ToGeo;
+use rusqlite::types::ValueRef;
+use rusqlite::{Connection, OptionalExtension, Row};
+
+use super::schema::Srs;
+use super::{blob, check_geopackage, file_error, open_file, quote, sqlite_error};
+use crate::adapters::{ColumnSpec, Source, SourceInfo};
+use crate::core::units::{IdKind, RawGeometry, UnitCollector, UnitId};
+use crate::error::{exit, Error, Location};
+
+/// EPSG codes of common geographic 2D CRSs (longitude/latitude in degrees):
+/// WGS 84, ETRS89, NAD83, NAD27, GDA94, GDA2020, NZGD2000, NAD83(CSRS),
+/// SIRGAS 2000, CGCS2000, NAD83(2011), JGD2000, JGD2011, ED50, OSGB36.
+/// Common practice, no source; definitions starting with `GEOGCS` catch the rest.
+pub const GEOGRAPHIC_EPSG: &[i32] = &[
+    4326, 4258, 4269, 4267, 4283, 7844, 4167, 4617, 4674, 4490, 6318, 4612, 6668, 4230, 4277,
+];
+
+/// Declared types SQLite and the GeoPackage use for integers.
+const INTEGER_TYPES: &[&str] = &[
+    "INTEGER",
+    "INT",
+    "TINYINT",
+    "SMALLINT",
+    "MEDIUMINT",
+    "BIGINT",
+];
+
+/// Declared types that hold other numbers (GeoPackage Table 1 plus SQLite's NUMERIC family).
+const REAL_TYPES: &[&str] = &[
+    "BOOLEAN",
+    "FLOAT",
+    "DOUBLE",
+    "DOUBLE PRECISION",
+    "REAL",
+    "NUMERIC",
+    "DECIMAL",
+];
+
+/// At most this many row problems are kept; the rest are counted.
+const MAX_PROBLEMS: usize = 1000;
+
+/// A GeoPackage layer opened as a source.
+pub struct GpkgSource {
+    conn: Connection,
+    path: PathBuf,
+    info: SourceInfo,
+    select: String,
+    rows: usize,
+}
+
+struct TableColumn {
+    name: String,
+    declared: String,
+    primary_key: bool,
+}
+
+fn base_type(declared: &str) -> String {
+    declared
+        .split('(')
+        .next()
+        .unwrap_or("")
+        .trim()
+        .to_ascii_uppercase()
+}
+
+impl GpkgSource {
+    /// Opens `layer` of the GeoPackage at `path` (the only feature layer when
+    /// `layer` is None). The id defaults to the layer's INTEGER PRIMARY KEY,
+    /// the geometry to the column registered in `gpkg_geometry_columns`.
+    ///
+    /// # Errors
+    /// Exit 66 for a missing file, layer or column; 65 for a file that is not a
+    /// GeoPackage, an unknown SRS id, columns of the wrong type and bad rows
+    /// (every one listed with its row id); 64 when the layer must be named;
+    /// 75 when another program holds a lock for longer than the busy timeout.
+    pub fn open(
+        path: &Path,
+        layer: Option<&str>,
+        columns: &ColumnSpec,
+    ) -> Result<GpkgSource, Error> {
+        let conn = open_file(path, false)?;
+        check_geopackage(&conn, path)?;
+        let layer = choose_layer(&conn, path, layer)?;
+        let display = format!("{}:{layer}", path.display());
+        let registered: Option<(String, String, i64)> = conn
+            .query_row(
+                "SELECT column_name, geometry_type_name, srs_id FROM gpkg_geometry_columns WHERE table_name = ?1",
+                [&layer],
+                |row| Ok((row.get(0)?, row.get(1)?, row.get(2)?)),
+            )
+            .optional()
+            .map_err(|e| sqlite_error(path, "reading gpkg_geometry_columns", &e))?;
+        let Some((registered_geom, geometry_type, srs_id)) = registered else {
+            return Err(file_error(
+                path,
+                format!("layer {layer} has no row in gpkg_geometry_columns, so it has no geometry column"),
+                exit::DATA,
+            ));
+        };
+        let srs = srs_row(&conn, path, srs_id)?.ok_or_else(|| {
+            file_error(
+                path,
+                format!(
+                    "layer {layer}: unknown SRS id {srs_id}: gpkg_geometry_columns names it but gpkg_spatial_ref_sys has no such srs_id"
+                ),
+                exit::DATA,
+            )
+        })?;
+        let table_columns = table_columns(&conn, path, &layer)?;
+        let id_column = match &columns.id {
+            Some(id) => id.clone(),
+            None => {
+                let keys: Vec<&TableColumn> =
+                    table_columns.iter().filter(|c| c.primary_key).collect();
+                match keys.as_slice() {
+                    [only] if INTEGER_TYPES.contains(&base_type(&only.declared).as_str()) => {
+                        only.name.clone()
+                    }
+                    _ => {
+                        return Err(Error::Usage(format!(
+                        "layer {display} has no INTEGER PRIMARY KEY: name the id column with --id"
+                    )))
+                    }
+                }
+            }
+        };
+        let geom_column = columns.geom.clone().unwrap_or(registered_geom.clone());
+        let wanted: Vec<&str> = [
+            id_column.as_str(),
+            geom_column.as_str(),
+            columns.target.as_str(),
+        ]
+        .into_iter()
+        .chain(columns.features.iter().map(String::as_str))
+        .collect();
+        let missing: Vec<String> = wanted
+            .iter()
+            .filter(|name| !table_columns.iter().any(|c| &c.name == *name))
+            .map(|name| format!("column {name}"))
+            .collect();
+        if !missing.is_empty() {
+            return Err(Error::NotFound {
+                what: format!(
+                    "{} in layer {layer} of {}",
+                    missing.join(", "),
+                    path.display()
+                ),
+            });
+        }
+        let find = |name: &str| table_columns.iter().find(|c| c.name == name);
+        let location = |column: &str| Location {
+            table: display.clone(),
+            column: Some(column.to_string()),
+            row_id: None,
+        };
+        let mut problems = Vec::new();
+        if geom_column != registered_geom {
+            problems.push((
+                location(&geom_column),
+                format!(
+                    "not the layer's geometry column: gpkg_geometry_columns registers {registered_geom}"
+                ),
+            ));
+        }
+        let id_type = find(&id_column)
+            .map(|c| base_type(&c.declared))
+            .unwrap_or_default();
+        let id_kind = if INTEGER_TYPES.contains(&id_type.as_str()) {
+            IdKind::Integer
+        } else if id_type == "TEXT" {
+            IdKind::Text
+        } else {
+            problems.push((
+                location(&id_column),
+                format!("id column has type {id_type:?}; it must be INTEGER or TEXT"),
+            ));
+            IdKind::Integer
+        };
+        for name in std::iter::once(&columns.target).chain(columns.features.iter()) {
+            if let Some(column) = find(name) {
+                let declared = base_type(&column.declared);
+                if !INTEGER_TYPES.contains(&declared.as_str())
+                    && !REAL_TYPES.contains(&declared.as_str())
+                {
+                    problems.push((
+                        location(name),
+                        format!(
+                            "column has type {:?}; it must be numeric (INTEGER, REAL, DOUBLE…)",
+                            column.declared
+                        ),
+                    ));
+                }
+            }
+        }
+        if !problems.is_empty() {
+            return Err(Error::Input { problems });
+        }
+        let numbers: Vec<String> = std::iter::once(&columns.target)
+            .chain(columns.features.iter())
+            .map(|name| quote(name))
+            .collect();
+        let select = format!(
+            "SELECT {}, {}, {}, rowid FROM {}",
+            quote(&id_column),
+            quote(&geom_column),
+            numbers.join(", "),
+            quote(&layer)
+        );
+        let srs_id = i32::try_from(srs_id).map_err(|_| {
+            file_error(
+                path,
+                format!("layer {layer}: SRS id {srs_id} is out of range"),
+                exit::DATA,
+            )
+        })?;
+        let upper = srs.definition.trim_start().to_ascii_uppercase();
+        let epsg = srs.organization.eq_ignore_ascii_case("EPSG");
+        let geographic = srs_id == 0
+            || upper.starts_with("GEOGCS[")
+            || upper.starts_with("GEOGCRS[")
+            || (epsg && GEOGRAPHIC_EPSG.contains(&srs.organization_id));
+        let srs_name = if srs.organization.eq_ignore_ascii_case("NONE") {
+            srs.name.clone()
+        } else {
+            format!(
+                "{}:{}",
+                srs.organization.to_ascii_uppercase(),
+                srs.organization_id
+            )
+        };
+        let info = SourceInfo {
+            store: "gpkg",
+            table: display,
+            qualified_table: layer,
+            id_column,
+            geom_column,
+            target_column: columns.target.clone(),
+            feature_columns: columns.features.clone(),
+            id_kind,
+            source_srid: srs_id,
+            srid: srs_id,
+            geographic,
+            declared_geometry_type: geometry_type.to_ascii_uppercase(),
+            srs_wkt: (!srs.definition.eq_ignore_ascii_case("undefined"))
+                .then(|| srs.definition.clone()),
+            srs_name: Some(srs_name),
+        };
+        let mut source = GpkgSource {
+            conn,
+            path: path.to_path_buf(),
+            info,
+            select,
+            rows: 0,
+        };
+        source.scan()?;
+        Ok(source)
+    }
+
+    /// Checks every row; see the module doc.
+    fn scan(&mut self) -> Result<(), Error> {
+        let reader = RowReader::new(&self.info);
+        let mut problems: Vec<(Location, String)> = Vec::new();
+        let mut more = 0usize;
+        let mut rows = 0usize;
+        self.for_each_row(|row| {
+            rows += 1;
+            for problem in reader.check(row)? {
+                if problems.len() < MAX_PROBLEMS {
+                    problems.push(problem);
+                } else {
+                    more += 1;
+                }
+            }
+            Ok(())
+        })?;
+        self.rows = rows;
+        if more > 0 {
+            problems.push((
+                Location {
+                    table: self.info.table.clone(),
+                    column: None,
+                    row_id: None,
+                },
+                format!("{more} further problems not listed"),
+            ));
+        }
+        if problems.is_empty() {
+            Ok(())
+        } else {
+            Err(Error::Input { problems })
+        }
+    }
+
+    fn for_each_row(
+        &self,
+        mut on_row: impl FnMut(&Row<'_>) -> Result<(), Error>,
+    ) -> Result<(), Error> {
+        let action = format!("reading layer {}", self.info.qualified_table);
+        let error = |e: rusqlite::Error| sqlite_error(&self.path, &action, &e);
+        let mut statement = self.conn.prepare(&self.select).map_err(error)?;
+        let mut rows = statement.query([]).map_err(error)?;
+        while let Some(row) = rows.next().map_err(error)? {
+            on_row(row)?;
+        }
+        Ok(())
+    }
+}
+
+impl Source for GpkgSource {
+    fn info(&self) -> &SourceInfo {
+        &self.info
+    }
+
+    fn read(&mut self, collector: &mut UnitCollector) -> Result<(), Error> {
+        collector.reserve(self.rows);
+        let reader = RowReader::new(&self.info);
+        let mut values: Vec<Option<f64>> = Vec::with_capacity(self.info.feature_columns.len());
+        self.for_each_row(|row| {
+            let fail = |column: &str, id: Option<String>, problem: String| {
+                Error::input(&self.info.table, Some(column), id, problem)
+            };
+            let id = reader
+                .id(row.get_ref(0).map_err(|e| self.column_error(&e))?)
+                .map_err(|problem| fail(&self.info.id_column, None, problem))?;
+            let geometry = reader
+                .geometry(row.get_ref(1).map_err(|e| self.column_error(&e))?)
+                .map_err(|problem| fail(&self.info.geom_column, Some(id.to_string()), problem))?;
+            let target = number(row.get_ref(2).map_err(|e| self.column_error(&e))?)
+                .map_err(|problem| fail(&self.info.target_column, Some(id.to_string()), problem))?;
+            values.clear();
+            for (index, name) in self.info.feature_columns.iter().enumerate() {
+                let value = number(row.get_ref(3 + index).map_err(|e| self.column_error(&e))?)
+                    .map_err(|problem| fail(name, Some(id.to_string()), problem))?;
+                values.push(value);
+            }
+            collector.push(id, geometry, target, &values)
+        })
+    }
+}
+
+impl GpkgSource {
+    fn column_error(&self, error: &rusqlite::Error) -> Error {
+        sqlite_error(
+            &self.path,
+            &format!("reading layer {}", self.info.qualified_table),
+            error,
+        )
+    }
+}
+
+/// Turns the values of one row into what the collector takes.
+struct RowReader<'a> {
+    info: &'a SourceInfo,
+}
+
+impl<'a> RowReader<'a> {
+    fn new(info: &'a SourceInfo) -> RowReader<'a> {
+        RowReader { info }
+    }
+
+    fn id(&self, value: ValueRef<'_>) -> Result<UnitId, String> {
+        match (self.info.id_kind, value) {
+            (_, ValueRef::Null) => Err("NULL id".to_string()),
+            (IdKind::Integer, ValueRef::Integer(value)) => Ok(UnitId::Int(value)),
+            (IdKind::Text, ValueRef::Text(bytes)) => {
+                Ok(UnitId::Text(String::from_utf8_lossy(bytes).into_owned()))
+            }
+            (IdKind::Text, ValueRef::Integer(value)) => Ok(UnitId::Text(value.to_string())),
+            (kind, other) => Err(format!(
+                "id value {} does not fit the column's type ({})",
+                describe(other),
+                match kind {
+                    IdKind::Integer => "INTEGER",
+                    IdKind::Text => "TEXT",
+                }
+            )),
+        }
+    }
+
+    /// The blob of a geometry value after its checks; None for NULL.
+    fn checked_blob<'v>(
+        &self,
+        value: ValueRef<'v>,
+    ) -> Result<Option<(&'v [u8], blob::Header)>, String> {
+        let bytes = match value {
+            ValueRef::Null => return Ok(None),
+            ValueRef::Blob(bytes) => bytes,
+            other => {
+                return Err(format!(
+                    "geometry is {}, not a GeoPackageBinary BLOB",
+                    describe(other)
+                ))
+            }
+        };
+        let header = blob::check(bytes).map_err(|error| error.to_string())?;
+        if i64::from(header.srs_id) != i64::from(self.info.source_srid) {
+            return Err(format!(
+                "geometry carries SRS id {} but the layer's SRS id is {} (GeoPackage Requirement 33)",
+                header.srs_id, self.info.source_srid
+            ));
+        }
+        Ok(Some((bytes, header)))
+    }
+
+    /// The decoded geometry of a row; the empty flag gives an empty geometry.
+    fn geometry(&self, value: ValueRef<'_>) -> Result<RawGeometry, String> {
+        let Some((bytes, header)) = self.checked_blob(value)? else {
+            return Ok(RawGeometry::Null);
+        };
+        if header.empty {
+            return Ok(RawGeometry::Decoded(Geometry::GeometryCollection(
+                GeometryCollection::new_from(Vec::new()),
+            )));
+        }
+        geozero::wkb::Wkb(&bytes[header.wkb_offset..])
+            .to_geo()
+            .map(RawGeometry::Decoded)
+            .map_err(|error| format!("geometry cannot be decoded: {error}"))
+    }
+
+    /// Every problem of a row, each with its location.
+    fn check(&self, row: &Row<'_>) -> Result<Vec<(Location, String)>, Error> {
+        let info = self.info;
+        let get = |index: usize| {
+            row.get_ref(index).map_err(|e| {
+                Error::Internal(format!("reading column {index} of {}: {e}", info.table))
+            })
+        };
+        let mut problems = Vec::new();
+        let mut at = |column: &str, row_id: Option<String>, problem: String| {
+            problems.push((
+                Location {
+                    table: info.table.clone(),
+                    column: Some(column.to_string()),
+                    row_id,
+                },
+                problem,
+            ));
+        };
+        let row_id = match self.id(get(0)?) {
+            Ok(id) => Some(id.to_string()),
+            Err(problem) => {
+                let rowid = match get(3 + info.feature_columns.len())? {
+                    ValueRef::Integer(rowid) => format!(" (SQLite rowid {rowid})"),
+                    _ => String::new(),
+                };
+                at(&info.id_column, None, format!("{problem}{rowid}"));
+                None
+            }
+        };
+        if let Err(problem) = self.checked_blob(get(1)?) {
+            at(&info.geom_column, row_id.clone(), problem);
+        }
+        for (index, name) in std::iter::once(&info.target_column)
+            .chain(info.feature_columns.iter())
+            .enumerate()
+        {
+            if let Err(problem) = number(get(2 + index)?) {
+                at(name, row_id.clone(), problem);
+            }
+        }
+        Ok(problems)
+    }
+}
+
+/// A numeric value; NULL is missing (the collector skips the row).
+fn number(value: ValueRef<'_>) -> Result<Option<f64>, String> {
+    match value {
+        ValueRef::Null => Ok(None),
+        ValueRef::Integer(value) => Ok(Some(value as f64)),
+        ValueRef::Real(value) => Ok(Some(value)),
+        other => Err(format!(
+            "{} in a numeric column; SQLite stores what it is given, so the value must be fixed or set to NULL",
+            describe(other)
+        )),
+    }
+}
+
+fn describe(value: ValueRef<'_>) -> String {
+    match value {
+        ValueRef::Null => "NULL".to_string(),
+        ValueRef::Integer(value) => format!("integer {value}"),
+        ValueRef::Real(value) => format!("real {value}"),
+        ValueRef::Text(bytes) => {
+            let text = String::from_utf8_lossy(bytes);
+            let shown: String = text.chars().take(40).collect();
+            format!("TEXT {shown:?}")
+        }
+        ValueRef::Blob(bytes) => format!("a BLOB of {} bytes", bytes.len()),
+    }
+}
+
+/// The layer to read: the one named, or the file's only feature layer.
+fn choose_layer(conn: &Connection, path: &Path, layer: Option<&str>) -> Result<String, Error> {
+    let error = |e: rusqlite::Error| sqlite_error(path, "reading gpkg_contents", &e);
+    let mut statement = conn
+        .prepare("SELECT table_name, data_type FROM gpkg_contents ORDER BY table_name")
+        .map_err(error)?;
+    let contents: Vec<(String, String)> = statement
+        .query_map([], |row| Ok((row.get(0)?, row.get(1)?)))
+        .map_err(error)?
+        .collect::<Result<_, _>>()
+        .map_err(error)?;
+    let features: Vec<&str> = contents
+        .iter()
+        .filter(|(_, kind)| kind == "features")
+        .map(|(name, _)| name.as_str())
+        .collect();
+    let list = if features.is_empty() {
+        "it has no feature layers".to_string()
+    } else {
+        format!("its feature layers are {}", features.join(", "))
+    };
+    match layer {
+        Some(name) => match contents.iter().find(|(table, _)| table == name) {
+            Some((_, kind)) if kind == "features" => Ok(name.to_string()),
+            Some((_, kind)) => Err(file_error(
+                path,
+                format!("layer {name} is a {kind} table, not a feature layer; {list}"),
+                exit::NO_INPUT,
+            )),
+            None => {
+                let unregistered = super::schema::has_table(conn, "main", name).map_err(error)?;
+                let problem = if unregistered {
+                    format!("table {name} is not registered in gpkg_contents, so it is not a layer; {list}")
+                } else {
+                    format!("no layer {name}; {list}")
+                };
+                Err(file_error(path, problem, exit::NO_INPUT))
+            }
+        },
+        None => match features.as_slice() {
+            [only] => Ok(only.to_string()),
+            [] => Err(file_error(path, list, exit::NO_INPUT)),
+            _ => Err(Error::Usage(format!(
+                "{} has several feature layers ({}); name one with --layer",
+                path.display(),
+                features.join(", ")
+            ))),
+        },
+    }
+}
+
+/// The `gpkg_spatial_ref_sys` row of `srs_id`, if there is one.
+///
+/// # Errors
+/// SQLite errors.
+pub(crate) fn srs_row(conn: &Connection, path: &Path, srs_id: i64) -> Result<Option<Srs>, Error> {
+    conn.query_row(
+        "SELECT srs_id, srs_name, organization, organization_coordsys_id, definition
+         FROM gpkg_spatial_ref_sys WHERE srs_id = ?1",
+        [srs_id],
+        |row| {
+            Ok(Srs {
+                srs_id: row.get(0)?,
+                name: row.get(1)?,
+                organization: row.get(2)?,
+                organization_id: row.get(3)?,
+                definition: row.get(4)?,
+            })
+        },
+    )
+    .optional()
+    .map_err(|e| sqlite_error(path, "reading gpkg_spatial_ref_sys", &e))
+}
+
+fn table_columns(conn: &Connection, path: &Path, layer: &str) -> Result<Vec<TableColumn>, Error> {
+    let error =
+        |e: rusqlite::Error| sqlite_error(path, &format!("reading the columns of {layer}"), &e);
+    let mut statement = conn
+        .prepare("SELECT name, type, pk FROM pragma_table_info(?1)")
+        .map_err(error)?;
+    let columns = statement
+        .query_map([layer], |row| {
+            Ok(TableColumn {
+                name: row.get(0)?,
+                declared: row.get(1)?,
+                primary_key: row.get::<_, i64>(2)? > 0,
+            })
+        })
+        .map_err(error)?
+        .collect::<Result<Vec<_>, _>>()
+        .map_err(error)?;
+    Ok(columns)
+}
