@@ -53,20 +53,7 @@ impl GpkgStore {
     /// does not exist; 75 when the file stays locked.
     pub fn open(path: &Path) -> Result<GpkgStore, Error> {
         let conn = if path.exists() {
-            let conn = open_file(path, true)?;
-            check_geopackage(&conn, path).map_err(|error| match error {
-                Error::File {
-                    path,
-                    problem,
-                    code,
-                } if code == exit::DATA => Error::File {
-                    path,
-                    problem: format!("{problem}; refusing to write results into it"),
-                    code,
-                },
-                other => other,
-            })?;
-            Some(conn)
+            Some(open_existing(path)?)
         } else {
             directory_of(path)?;
             None
@@ -79,6 +66,71 @@ impl GpkgStore {
 
     fn location(&self) -> String {
         self.path.display().to_string()
+    }
+}
+
+/// Opens an existing GeoPackage to write results into.
+fn open_existing(path: &Path) -> Result<Connection, Error> {
+    let conn = open_file(path, true)?;
+    check_geopackage(&conn, path).map_err(|error| match error {
+        Error::File {
+            path,
+            problem,
+            code,
+        } if code == exit::DATA => Error::File {
+            path,
+            problem: format!("{problem}; refusing to write results into it"),
+            code,
+        },
+        other => other,
+    })?;
+    Ok(conn)
+}
+
+/// A GeoPackage being written: an existing file, or a new one built under a
+/// temporary name until [`Target::finish`].
+pub(crate) struct Target {
+    /// The connection to write through.
+    pub conn: Connection,
+    new_file: Option<NewFile>,
+}
+
+impl Target {
+    /// Opens the file at `path`, or starts a new one with the required tables.
+    ///
+    /// # Errors
+    /// As [`GpkgStore::open`]; SQLite errors.
+    pub(crate) fn open(path: &Path) -> Result<Target, Error> {
+        if path.exists() {
+            return Ok(Target {
+                conn: open_existing(path)?,
+                new_file: None,
+            });
+        }
+        let (file, conn) = NewFile::create(path)?;
+        schema::create_container(&conn)
+            .map_err(|e| sqlite_error(path, "creating the GeoPackage", &e))?;
+        Ok(Target {
+            conn,
+            new_file: Some(file),
+        })
+    }
+
+    /// True for a file this target is creating.
+    pub(crate) fn is_new(&self) -> bool {
+        self.new_file.is_some()
+    }
+
+    /// Moves a new file into place (after the caller committed); a no-op for an
+    /// existing file.
+    ///
+    /// # Errors
+    /// I/O errors.
+    pub(crate) fn finish(self) -> Result<(), Error> {
+        match self.new_file {
+            Some(file) => file.finish(self.conn),
+            None => Ok(()),
+        }
     }
 }
 
@@ -326,13 +378,16 @@ impl JobLayers {
     pub(crate) fn rewrite(
         &self,
         conn: &Connection,
+        path: &Path,
         run_id: &str,
         triggers: TriggerSet,
-        fill: impl FnOnce(&Connection, &str) -> rusqlite::Result<()>,
-    ) -> rusqlite::Result<u64> {
+        fill: impl FnOnce(&Connection, &str) -> Result<(), Error>,
+    ) -> Result<u64, Error> {
+        let at = |what: &'static str| move |e: rusqlite::Error| sqlite_error(path, what, &e);
         for table in [&self.units, &self.blocks] {
-            schema::drop_feature_table(conn, &table.name)?;
-            schema::create_feature_table(conn, table)?;
+            schema::drop_feature_table(conn, &table.name)
+                .map_err(at("replacing the job layers"))?;
+            schema::create_feature_table(conn, table).map_err(at("replacing the job layers"))?;
         }
         fill(conn, &format!("main.{}", quote(&self.units.name)))?;
         conn.execute(
@@ -343,9 +398,11 @@ impl JobLayers {
                 quote(&self.blocks.name)
             ),
             [run_id],
-        )?;
+        )
+        .map_err(at("writing the job's blocks layer"))?;
         for table in [&self.units, &self.blocks] {
-            schema::index_feature_table(conn, table, triggers)?;
+            schema::index_feature_table(conn, table, triggers)
+                .map_err(at("indexing the job layers"))?;
         }
         conn.query_row(
             &format!("SELECT count(*) FROM main.{}", quote(&self.units.name)),
@@ -353,6 +410,7 @@ impl JobLayers {
             |row| row.get::<_, i64>(0),
         )
         .map(|count| count as u64)
+        .map_err(at("counting the per-unit layer"))
     }
 }
 
@@ -492,33 +550,46 @@ impl ResultStore for GpkgStore {
         let id_type = unit_id_type(info.id_kind);
         let path = self.path.clone();
         let action = |e: rusqlite::Error| sqlite_error(&path, "recording the run", &e);
-        match self.conn.as_mut() {
-            None => {
-                let (file, mut conn) = NewFile::create(&path)?;
-                let tx = conn.transaction().map_err(action)?;
-                schema::create_container(&tx).map_err(action)?;
-                ensure_srs(&tx, &path, &srs)?;
-                schema::create_results(&tx, id_type, info.srid, TriggerSet::V1_3)
-                    .map_err(action)?;
-                insert_runs(&tx, info, records).map_err(action)?;
-                tx.commit().map_err(action)?;
-                file.finish(conn)?;
-                self.conn = Some(open_file(&path, true)?);
-            }
-            Some(conn) => {
+        let mut target = match self.conn.take() {
+            Some(conn) => Target {
+                conn,
+                new_file: None,
+            },
+            None => Target::open(&path)?,
+        };
+        let recorded = (|| {
+            if !target.is_new() {
                 let source_layer =
                     same_file(&path, &source_path(info)?).then_some(info.qualified_table.as_str());
-                check_job_layers(conn, &path, job, source_layer)?;
-                let tx = conn
-                    .transaction_with_behavior(TransactionBehavior::Immediate)
-                    .map_err(action)?;
-                ensure_results(&tx, &path, id_type, info.srid)?;
-                ensure_srs(&tx, &path, &srs)?;
-                insert_runs(&tx, info, records).map_err(action)?;
-                tx.commit().map_err(action)?;
+                check_job_layers(&target.conn, &path, job, source_layer)?;
+            }
+            let tx = target
+                .conn
+                .transaction_with_behavior(TransactionBehavior::Immediate)
+                .map_err(action)?;
+            // The SRS row first: the blocks layer's registration refers to it.
+            ensure_srs(&tx, &path, &srs)?;
+            ensure_results(&tx, &path, id_type, info.srid)?;
+            insert_runs(&tx, info, records).map_err(action)?;
+            tx.commit().map_err(action)
+        })();
+        match (recorded, target.is_new()) {
+            (Ok(()), true) => {
+                target.finish()?;
+                self.conn = Some(open_file(&path, true)?);
+                Ok(())
+            }
+            (Ok(()), false) => {
+                self.conn = Some(target.conn);
+                Ok(())
+            }
+            (Err(error), is_new) => {
+                if !is_new {
+                    self.conn = Some(target.conn);
+                }
+                Err(error)
             }
         }
-        Ok(())
     }
 
     fn commit(
@@ -632,24 +703,23 @@ fn write_runs(
             let source_table = format!("{}.{}", quote(source_schema), quote(&info.qualified_table));
             let id = quote(&info.id_column);
             let geom = quote(&info.geom_column);
-            let units = layers
-                .rewrite(&tx, &run_id, triggers, |conn, table| {
-                    // A skipped row may share its id with a used one; the first
-                    // row with a geometry is kept.
-                    conn.execute(
-                        &format!(
-                            "INSERT OR IGNORE INTO {table}
-                               (fid, unit_id, run_id, observed, predicted, residual, abs_error, rmse, repetitions, geom)
-                             SELECT e.unit_key, e.unit_id, e.run_id, e.observed, e.predicted, e.residual,
-                                    e.abs_error, e.rmse, e.repetitions, s.{geom}
-                             FROM main.unit_errors e JOIN {source_table} s ON s.{id} = e.unit_id
-                             WHERE e.run_id = ?1 AND s.{geom} IS NOT NULL"
-                        ),
-                        [&run_id],
-                    )
-                    .map(|_| ())
-                })
-                .map_err(|e| sqlite_error(path, "writing the job layers", &e))?;
+            let units = layers.rewrite(&tx, path, &run_id, triggers, |conn, table| {
+                // A skipped row may share its id with a used one; the first
+                // row with a geometry is kept.
+                conn.execute(
+                    &format!(
+                        "INSERT OR IGNORE INTO {table}
+                           (fid, unit_id, run_id, observed, predicted, residual, abs_error, rmse, repetitions, geom)
+                         SELECT e.unit_key, e.unit_id, e.run_id, e.observed, e.predicted, e.residual,
+                                e.abs_error, e.rmse, e.repetitions, s.{geom}
+                         FROM main.unit_errors e JOIN {source_table} s ON s.{id} = e.unit_id
+                         WHERE e.run_id = ?1 AND s.{geom} IS NOT NULL"
+                    ),
+                    [&run_id],
+                )
+                .map(|_| ())
+                .map_err(|e| sqlite_error(path, "copying the unit geometries", &e))
+            })?;
             add_count(&mut counts, job, units);
         }
     }
