@@ -12,11 +12,14 @@ use crate::adapters::gpkg::{self, GpkgSource, GpkgStore};
 use crate::adapters::postgis::read::PostgisSource;
 use crate::adapters::postgis::write::PostgisStore;
 use crate::adapters::postgis::{load, Session};
-use crate::adapters::ColumnSpec;
+use crate::adapters::{ColumnSpec, ResultStore, Source};
 use crate::cli::run::{execute, SchemeName, ValidationArgs, DEFAULT_SEED};
 use crate::demo::{generate, DEMO_BLOCK_SIZE_M, DEMO_FEATURES, DEMO_LAYER, DEMO_TARGET};
 use crate::error::Error;
 use crate::report::Summary;
+
+/// Job label of the demo runs.
+pub const DEMO_JOB: &str = "demo_nitrate";
 
 /// `geofold demo`.
 #[derive(Debug, Clone, Args)]
@@ -59,49 +62,51 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
     let validation = ValidationArgs {
         scheme: SchemeName::Grid,
         block_size: Some(DEMO_BLOCK_SIZE_M),
-        grid_origin: vec![0.0, 0.0],
+        grid_origin: None,
         folds: args.folds,
         repeats: 1,
         seed: args.seed,
         also_random: true,
         model: "ols".into(),
     };
-    match &args.db {
+    let (mut source, mut store, hint): (Box<dyn Source>, Box<dyn ResultStore>, String) = match &args
+        .db
+    {
         Some(db) => {
             let session = Session::connect(Some(db))?;
             load::load_demo(&session, "demo", DEMO_LAYER, &units)?;
-            let mut source =
-                PostgisSource::open(session, &format!("demo.{DEMO_LAYER}"), &columns, None)?;
-            let mut store = PostgisStore::new(Session::connect(Some(db))?, "geofold_demo");
-            let summary = execute(
-                &mut source,
-                &mut store,
-                &validation,
-                Some("demo_nitrate"),
-                false,
-            )?;
-            let hint = "open in QGIS: PostGIS layers geofold_demo.demo_nitrate (per-unit errors) and \
-                        geofold_demo.demo_nitrate_blocks (blocks); the source is demo.subcatchments"
-                .to_string();
-            Ok((summary, hint))
+            let table = format!("demo.{DEMO_LAYER}");
+            (
+                Box::new(PostgisSource::open(session, &table, &columns, None)?),
+                Box::new(PostgisStore::new(
+                    Session::connect(Some(db))?,
+                    "geofold_demo",
+                )),
+                format!(
+                    "open in QGIS: PostGIS layers geofold_demo.{DEMO_JOB} (per-unit errors) and \
+                         geofold_demo.{DEMO_JOB}_blocks (blocks); the source is {table}"
+                ),
+            )
         }
         None => {
             gpkg::write_demo(&args.out, &units)?;
-            let mut source = GpkgSource::open(&args.out, Some(DEMO_LAYER), &columns)?;
-            let mut store = GpkgStore::open(&args.out)?;
-            let summary = execute(
-                &mut source,
-                &mut store,
-                &validation,
-                Some("demo_nitrate"),
-                false,
-            )?;
-            let hint = format!(
-                "open {} in QGIS or any GIS: layer demo_nitrate (per-unit errors of the latest run) and \
-                 demo_nitrate_blocks (blocks and their folds); the source layer is {DEMO_LAYER}",
-                args.out.display()
-            );
-            Ok((summary, hint))
+            (
+                    Box::new(GpkgSource::open(&args.out, Some(DEMO_LAYER), &columns)?),
+                    Box::new(GpkgStore::open(&args.out)?),
+                    format!(
+                        "open {} in QGIS or any GIS: layer {DEMO_JOB} (per-unit errors of the latest run) \
+                         and {DEMO_JOB}_blocks (blocks and their folds); the source layer is {DEMO_LAYER}",
+                        args.out.display()
+                    ),
+                )
         }
-    }
+    };
+    let summary = execute(
+        source.as_mut(),
+        store.as_mut(),
+        &validation,
+        Some(DEMO_JOB),
+        false,
+    )?;
+    Ok((summary, hint))
 }

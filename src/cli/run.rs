@@ -83,9 +83,9 @@ pub struct ValidationArgs {
     /// Block side for --scheme grid, in metres (CRS units of the distance CRS).
     #[arg(long, value_name = "METRES")]
     pub block_size: Option<f64>,
-    /// Grid origin X,Y in CRS units; cells are [x0 + i·size, x0 + (i+1)·size).
-    #[arg(long, value_name = "X,Y", value_delimiter = ',', num_args = 2, default_values_t = [0.0, 0.0])]
-    pub grid_origin: Vec<f64>,
+    /// Grid origin X,Y in CRS units (default 0,0); cells are [x0 + i·size, x0 + (i+1)·size).
+    #[arg(long, value_name = "X,Y", allow_hyphen_values = true)]
+    pub grid_origin: Option<String>,
     /// Number of folds.
     #[arg(long, default_value_t = 5)]
     pub folds: u32,
@@ -293,6 +293,28 @@ pub fn execute(
         );
         source.read(&mut collector)?;
         let dataset = collector.finish(&info.id_column)?;
+        if dataset.is_empty() {
+            let reasons: Vec<String> = dataset
+                .skipped
+                .reasons()
+                .iter()
+                .map(|(reason, count)| format!("{count} {reason}"))
+                .collect();
+            return Err(Error::input(
+                &info.table,
+                None,
+                None,
+                format!(
+                    "no usable rows: {} rows read{}",
+                    dataset.rows_read,
+                    if reasons.is_empty() {
+                        String::new()
+                    } else {
+                        format!(", all skipped ({})", reasons.join(", "))
+                    }
+                ),
+            ));
+        }
         tracing::info!(
             units = dataset.len(),
             skipped = dataset.skipped.total(),
@@ -335,9 +357,9 @@ fn plan_of(validation: &ValidationArgs) -> Result<Plan, Error> {
             let block_size = validation
                 .block_size
                 .ok_or_else(|| Error::Usage("--scheme grid needs --block-size METRES".into()))?;
-            let origin = match validation.grid_origin.as_slice() {
-                [x, y] => [*x, *y],
-                _ => return Err(Error::Usage("--grid-origin takes X,Y".into())),
+            let origin = match &validation.grid_origin {
+                None => [0.0, 0.0],
+                Some(text) => parse_origin(text)?,
             };
             SchemeSpec::Grid(GridParams {
                 block_size,
@@ -363,4 +385,17 @@ fn plan_of(validation: &ValidationArgs) -> Result<Plan, Error> {
         repeats: validation.repeats,
         seed: validation.seed,
     })
+}
+
+fn parse_origin(text: &str) -> Result<[f64; 2], Error> {
+    let parts: Vec<Option<f64>> = text
+        .split(',')
+        .map(|part| part.trim().parse::<f64>().ok().filter(|v| v.is_finite()))
+        .collect();
+    match parts.as_slice() {
+        [Some(x), Some(y)] => Ok([*x, *y]),
+        _ => Err(Error::Usage(format!(
+            "--grid-origin takes X,Y (two numbers), got {text:?}"
+        ))),
+    }
 }
