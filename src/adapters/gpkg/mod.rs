@@ -6,6 +6,7 @@
 //! - [`blob`]: the GeoPackageBinary header and the WKB walk that checks it.
 //! - [`schema`]: the required tables, SRS rows, table registration, the R-tree
 //!   index and its SQL functions, and the results tables.
+//! - `rtree`: Sort-Tile-Recursive packing of a new R-tree index.
 //! - `read`: [`GpkgSource`].
 //! - `write`: [`GpkgStore`] and [`write_demo`].
 //! - [`export`]: one run's results from PostGIS into a GeoPackage.
@@ -39,6 +40,7 @@
 pub mod blob;
 pub mod export;
 mod read;
+mod rtree;
 pub mod schema;
 mod write;
 

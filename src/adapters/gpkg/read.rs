@@ -276,7 +276,13 @@ impl GpkgSource {
             select,
             rows: 0,
         };
+        let clock = std::time::Instant::now();
         source.scan()?;
+        tracing::debug!(
+            rows = source.rows,
+            elapsed_ms = clock.elapsed().as_millis() as u64,
+            "checked every row"
+        );
         Ok(source)
     }
 

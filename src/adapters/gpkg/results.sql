@@ -55,9 +55,11 @@ CREATE TABLE runs (
 CREATE INDEX runs_job_idx ON runs (job, status, finished_at);
 
 -- Per-unit tables, as in PostGIS: no foreign key and no unique key (geofold
--- writes a run's rows once, inside the transaction that marks it succeeded),
--- only an index on run_id; a run's rows are appended together, so the index
--- grows at its end.
+-- writes a run's rows once, inside the transaction that marks it succeeded).
+-- SQLite has no BRIN, and a B-tree on run_id would double the time to write
+-- a million-unit run, so there is no index: a run's rows are contiguous in
+-- fid order, and a query by run scans the table. Add an index by hand when a
+-- file holds many large runs.
 CREATE TABLE predictions (
     fid           INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL,
     run_id        TEXT NOT NULL,
@@ -70,7 +72,6 @@ CREATE TABLE predictions (
     abs_error     DOUBLE NOT NULL,
     squared_error DOUBLE NOT NULL
 );
-CREATE INDEX predictions_run_idx ON predictions (run_id);
 
 -- Fold membership is the (run, repetition, fold, unit) of each held-out
 -- prediction, so it is a view, as in PostGIS. Its first column is the unique
@@ -90,7 +91,6 @@ CREATE TABLE unit_errors (
     rmse        DOUBLE NOT NULL,
     repetitions INTEGER NOT NULL
 );
-CREATE INDEX unit_errors_run_idx ON unit_errors (run_id);
 
 CREATE TABLE fold_scores (
     fid        INTEGER PRIMARY KEY AUTOINCREMENT NOT NULL,

@@ -12,7 +12,8 @@
 //!   `gpkg_geometry_columns.geometry_type_name`; attribute tables (clause 2.4)
 //!   are registered with `data_type = 'attributes'`;
 //! - the R-tree index follows Annex F.3 "RTree Spatial Indexes": a virtual
-//!   table, a `gpkg_extensions` row, a bulk load, then the triggers.
+//!   table, a `gpkg_extensions` row, the existing rows loaded (packed by
+//!   [`rtree`]), then the triggers.
 //!
 //! # Version and trigger set
 //! New files declare `user_version` 10300 (GeoPackage 1.3.0): GDAL 3.6, the
@@ -37,8 +38,8 @@ use rusqlite::functions::FunctionFlags;
 use rusqlite::types::ValueRef;
 use rusqlite::{params, Connection};
 
-use super::blob;
 use super::quote;
+use super::{blob, rtree};
 
 /// `PRAGMA application_id` of a GeoPackage: "GPKG" (clause 1.1.1.1.1, Requirement 2).
 pub const APPLICATION_ID: i32 = 0x4750_4B47;
@@ -384,30 +385,56 @@ pub fn create_feature_table(conn: &Connection, table: &FeatureTable) -> rusqlite
     Ok(())
 }
 
-/// Loads the R-tree from the rows already in the table (Annex F.3 "Load
-/// Spatial Index Values"), creates the triggers and refreshes the
-/// `gpkg_contents` extent.
+/// Builds the (empty) R-tree from the rows already in the table, creates the
+/// triggers and sets the `gpkg_contents` extent. The index holds what Annex
+/// F.3 "Load Spatial Index Values" loads (every non-NULL, non-empty geometry),
+/// packed by [`rtree::bulk_load`] instead of inserted row by row.
 ///
 /// # Errors
-/// SQLite errors.
+/// SQLite errors; a malformed blob in the table.
 pub fn index_feature_table(
     conn: &Connection,
     table: &FeatureTable,
     triggers: TriggerSet,
 ) -> rusqlite::Result<()> {
-    let t = quote(&table.name);
-    let c = quote(GEOMETRY_COLUMN);
-    let i = quote(&table.key);
-    let rtree = quote(&rtree_name(&table.name));
-    conn.execute_batch(&format!(
-        "INSERT OR REPLACE INTO main.{rtree}
-           SELECT {i}, ST_MinX({c}), ST_MaxX({c}), ST_MinY({c}), ST_MaxY({c}) FROM main.{t}
-           WHERE {c} NOT NULL AND NOT ST_IsEmpty({c});"
-    ))?;
+    let mut entries = Vec::new();
+    let mut extent = blob::Bounds::default();
+    {
+        let mut statement = conn.prepare(&format!(
+            "SELECT {i}, {c} FROM main.{t} WHERE {c} NOT NULL",
+            i = quote(&table.key),
+            c = quote(GEOMETRY_COLUMN),
+            t = quote(&table.name)
+        ))?;
+        let mut rows = statement.query([])?;
+        while let Some(row) = rows.next()? {
+            let ValueRef::Blob(bytes) = row.get_ref(1)? else {
+                continue;
+            };
+            if let Some(envelope) = envelope_of(bytes)? {
+                extent.add_envelope(envelope);
+                entries.push(rtree::Entry::new(row.get(0)?, envelope));
+            }
+        }
+    }
+    rtree::bulk_load(conn, &rtree_name(&table.name), entries)?;
     for sql in trigger_sql(&table.name, GEOMETRY_COLUMN, &table.key, triggers) {
         conn.execute_batch(&sql)?;
     }
-    refresh_extent(conn, &table.name)
+    let bounds = extent.envelope();
+    conn.execute(
+        "UPDATE main.gpkg_contents SET min_x = ?2, min_y = ?3, max_x = ?4, max_y = ?5,
+           last_change = strftime('%Y-%m-%dT%H:%M:%fZ', 'now')
+         WHERE table_name = ?1",
+        params![
+            table.name,
+            bounds.map(|b| b[0]),
+            bounds.map(|b| b[2]),
+            bounds.map(|b| b[1]),
+            bounds.map(|b| b[3])
+        ],
+    )?;
+    Ok(())
 }
 
 /// Sets the `gpkg_contents` extent of a feature table to that of its rows

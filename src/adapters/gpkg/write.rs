@@ -389,7 +389,12 @@ impl JobLayers {
                 .map_err(at("replacing the job layers"))?;
             schema::create_feature_table(conn, table).map_err(at("replacing the job layers"))?;
         }
+        let clock = std::time::Instant::now();
         fill(conn, &format!("main.{}", quote(&self.units.name)))?;
+        tracing::debug!(
+            elapsed_ms = clock.elapsed().as_millis() as u64,
+            "filled the per-unit layer"
+        );
         conn.execute(
             &format!(
                 "INSERT INTO main.{} (block_key, run_id, block_col, block_row, fold, n_units, geom)
@@ -400,10 +405,15 @@ impl JobLayers {
             [run_id],
         )
         .map_err(at("writing the job's blocks layer"))?;
+        let clock = std::time::Instant::now();
         for table in [&self.units, &self.blocks] {
             schema::index_feature_table(conn, table, triggers)
                 .map_err(at("indexing the job layers"))?;
         }
+        tracing::debug!(
+            elapsed_ms = clock.elapsed().as_millis() as u64,
+            "indexed the job layers"
+        );
         conn.query_row(
             &format!("SELECT count(*) FROM main.{}", quote(&self.units.name)),
             [],
@@ -670,11 +680,20 @@ fn write_runs(
         .transaction_with_behavior(TransactionBehavior::Immediate)
         .map_err(|e| sqlite_error(path, "starting the transaction", &e))?;
     let mut counts = Vec::new();
+    let clock = std::time::Instant::now();
+    let mut unit_rows = Vec::new();
     for run in runs {
-        for (table, rows) in write_run(&tx, path, info, dataset, run)? {
-            add_count(&mut counts, table, rows);
+        let written = write_run(&tx, path, info, dataset, run)?;
+        for (table, count) in written.counts {
+            add_count(&mut counts, table, count);
         }
+        unit_rows.push((run.record.run_id, written.unit_errors));
     }
+    tracing::debug!(
+        elapsed_ms = clock.elapsed().as_millis() as u64,
+        "wrote the result rows"
+    );
+    let clock = std::time::Instant::now();
     let primary = runs.iter().find(|run| run.record.primary_run_id.is_none());
     if let Some(primary) = primary {
         let job = &primary.record.job;
@@ -700,32 +719,62 @@ fn write_runs(
                 (z, m),
                 info.srid,
             );
-            let source_table = format!("{}.{}", quote(source_schema), quote(&info.qualified_table));
-            let id = quote(&info.id_column);
-            let geom = quote(&info.geom_column);
+            let rows = unit_rows
+                .iter()
+                .find(|(id, _)| *id == primary.record.run_id)
+                .map(|(_, rows)| *rows)
+                .ok_or_else(|| Error::Internal("the primary run wrote no unit_errors".into()))?;
             let units = layers.rewrite(&tx, path, &run_id, triggers, |conn, table| {
-                // A skipped row may share its id with a used one; the first
-                // row with a geometry is kept.
-                conn.execute(
-                    &format!(
-                        "INSERT OR IGNORE INTO {table}
-                           (fid, unit_id, run_id, observed, predicted, residual, abs_error, rmse, repetitions, geom)
-                         SELECT e.unit_key, e.unit_id, e.run_id, e.observed, e.predicted, e.residual,
-                                e.abs_error, e.rmse, e.repetitions, s.{geom}
-                         FROM main.unit_errors e JOIN {source_table} s ON s.{id} = e.unit_id
-                         WHERE e.run_id = ?1 AND s.{geom} IS NOT NULL"
-                    ),
-                    [&run_id],
-                )
-                .map(|_| ())
-                .map_err(|e| sqlite_error(path, "copying the unit geometries", &e))
+                fill_unit_layer(conn, path, table, source_schema, info, rows)
             })?;
             add_count(&mut counts, job, units);
         }
     }
+    tracing::debug!(
+        elapsed_ms = clock.elapsed().as_millis() as u64,
+        "rewrote the job layers"
+    );
+    let clock = std::time::Instant::now();
     tx.commit()
         .map_err(|e| sqlite_error(path, "committing", &e))?;
+    tracing::debug!(elapsed_ms = clock.elapsed().as_millis() as u64, "committed");
     Ok(counts)
+}
+
+/// Fills the per-unit layer: the run's `unit_errors` rows (fids `rows`, so
+/// other runs are not scanned) joined to the source layer's geometry blobs.
+/// A skipped row may share its id with a used one; the first row with a
+/// geometry is kept.
+fn fill_unit_layer(
+    conn: &Connection,
+    path: &Path,
+    table: &str,
+    source_schema: &str,
+    info: &SourceInfo,
+    rows: (i64, i64),
+) -> Result<(), Error> {
+    let source = format!("{}.{}", quote(source_schema), quote(&info.qualified_table));
+    let id = quote(&info.id_column);
+    let geom = quote(&info.geom_column);
+    conn.execute(
+        &format!(
+            "INSERT OR IGNORE INTO {table}
+               (fid, unit_id, run_id, observed, predicted, residual, abs_error, rmse, repetitions, geom)
+             SELECT e.unit_key, e.unit_id, e.run_id, e.observed, e.predicted, e.residual,
+                    e.abs_error, e.rmse, e.repetitions, s.{geom}
+             FROM main.unit_errors e JOIN {source} s ON s.{id} = e.unit_id
+             WHERE e.fid BETWEEN ?1 AND ?2 AND s.{geom} IS NOT NULL"
+        ),
+        [rows.0, rows.1],
+    )
+    .map(|_| ())
+    .map_err(|e| sqlite_error(path, "copying the unit geometries", &e))
+}
+
+/// What [`write_run`] wrote: rows per table, and the fid range of its `unit_errors`.
+struct RunRows {
+    counts: Vec<(&'static str, u64)>,
+    unit_errors: (i64, i64),
 }
 
 fn write_run(
@@ -734,7 +783,7 @@ fn write_run(
     info: &SourceInfo,
     dataset: &Dataset,
     run: &FinishedRun<'_>,
-) -> Result<Vec<(&'static str, u64)>, Error> {
+) -> Result<RunRows, Error> {
     let at = |what: &'static str| move |e: rusqlite::Error| sqlite_error(path, what, &e);
     let run_id = run.record.run_id.to_string();
     let outcome = run.outcome;
@@ -793,6 +842,9 @@ fn write_run(
             .map_err(at("writing unit_errors"))?;
     }
     counts.push(("unit_errors", n as u64));
+    // The run's unit_errors rows are the last n inserted.
+    let last = conn.last_insert_rowid();
+    let unit_rows = (last - n as i64 + 1, last);
 
     let mut scores = conn.prepare(
         "INSERT INTO main.fold_scores (run_id, repetition, fold, n_train, n_test, rmse, mae, bias, r2)
@@ -886,7 +938,10 @@ fn write_run(
         ],
     )
     .map_err(at("marking the run succeeded"))?;
-    Ok(counts)
+    Ok(RunRows {
+        counts,
+        unit_errors: unit_rows,
+    })
 }
 
 /// Writes the demo scenario as a fresh GeoPackage at `path` (replacing any
