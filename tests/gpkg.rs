@@ -947,6 +947,43 @@ fn every_bad_row_is_listed_at_once() {
 }
 
 #[test]
+fn an_empty_geometry_written_by_gdal_is_skipped_as_empty() {
+    let workdir = Workdir::new();
+    let file = "empty.gpkg";
+    lattice(&workdir, file);
+    // GDAL's CSV reader takes the WKT column as the geometry; its GeoPackage
+    // writer sets the empty flag of the GeoPackageBinary header.
+    std::fs::write(
+        workdir.path("extra.csv"),
+        "WKT,code,x1,x2,y\n\"POLYGON EMPTY\",U-900,0.5,2.5,1.25\n",
+    )
+    .unwrap();
+    ogr2ogr(
+        workdir.root(),
+        &[
+            "-append",
+            file,
+            "extra.csv",
+            "-nln",
+            "units",
+            "-nlt",
+            "POLYGON",
+            "-a_srs",
+            "EPSG:32631",
+        ],
+    );
+    let mut args = lattice_args(file);
+    args.push("--json".into());
+    let output = geofold(&workdir, &args);
+    assert_eq!(code(&output), 0, "{}", stderr(&output));
+    let summary = json(&output);
+    assert_eq!(summary["units_read"], 49);
+    assert_eq!(summary["skipped"]["empty_geometry"], 1);
+    assert_eq!(summary["skipped"]["missing_feature"]["x2"], 1);
+    assert_eq!(summary["units_used"], 47);
+}
+
+#[test]
 fn a_locked_file_fails_after_the_busy_timeout() {
     let workdir = Workdir::new();
     let file = "locked.gpkg";

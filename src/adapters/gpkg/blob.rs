@@ -518,6 +518,22 @@ mod tests {
     }
 
     #[test]
+    fn empty_geometries_are_encoded_as_gdal_writes_them() {
+        // GDAL 3.6.2 `ogr2ogr -f GPKG` of `POLYGON EMPTY` in EPSG:32631 (read back
+        // with sqlite3 hex()): flags 0x11 (empty, little-endian, no envelope).
+        let gdal = "47500011777F0000010300000000000000";
+        let empty_polygon = [1u8, 3, 0, 0, 0, 0, 0, 0, 0];
+        let ours: String = encode_wkb(32631, &empty_polygon)
+            .unwrap()
+            .iter()
+            .map(|byte| format!("{byte:02X}"))
+            .collect();
+        assert_eq!(ours, gdal);
+        let header = check(&encode(32631, None, &empty_polygon)).unwrap();
+        assert!(header.empty);
+    }
+
+    #[test]
     fn bad_headers_are_named() {
         assert_eq!(parse_header(b"GP"), Err(BlobError::TooShort(2)));
         assert_eq!(

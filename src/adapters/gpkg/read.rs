@@ -321,61 +321,158 @@ impl GpkgSource {
         }
     }
 
-    fn for_each_row(
-        &self,
-        mut on_row: impl FnMut(&Row<'_>) -> Result<(), Error>,
-    ) -> Result<(), Error> {
-        let action = format!("reading layer {}", self.info.qualified_table);
-        let error = |e: rusqlite::Error| sqlite_error(&self.path, &action, &e);
-        let mut statement = self.conn.prepare(&self.select).map_err(error)?;
-        let mut rows = statement.query([]).map_err(error)?;
-        while let Some(row) = rows.next().map_err(error)? {
-            on_row(row)?;
-        }
-        Ok(())
+    fn for_each_row(&self, on_row: impl FnMut(&Row<'_>) -> Result<(), Error>) -> Result<(), Error> {
+        each_row(&self.conn, &self.path, &self.info, &self.select, on_row)
     }
 }
+
+/// Steps through the rows of `select` on `conn`.
+fn each_row(
+    conn: &Connection,
+    path: &Path,
+    info: &SourceInfo,
+    select: &str,
+    mut on_row: impl FnMut(&Row<'_>) -> Result<(), Error>,
+) -> Result<(), Error> {
+    let action = format!("reading layer {}", info.qualified_table);
+    let error = |e: rusqlite::Error| sqlite_error(path, &action, &e);
+    let mut statement = conn.prepare(select).map_err(error)?;
+    let mut rows = statement.query([]).map_err(error)?;
+    while let Some(row) = rows.next().map_err(error)? {
+        on_row(row)?;
+    }
+    Ok(())
+}
+
+/// Rows handed from the thread that steps through SQLite to the one that
+/// decodes: ids, numbers and geometry bytes, copied out of SQLite's pages.
+#[derive(Default)]
+struct Batch {
+    ids: Vec<UnitId>,
+    /// `1 + n_features` values per row: the target, then the features.
+    numbers: Vec<Option<f64>>,
+    /// Per row, the byte range of its blob in `bytes` (None for NULL).
+    geometries: Vec<Option<(usize, usize)>>,
+    bytes: Vec<u8>,
+}
+
+/// Rows per batch.
+const BATCH_ROWS: usize = 4096;
 
 impl Source for GpkgSource {
     fn info(&self) -> &SourceInfo {
         &self.info
     }
 
+    /// Streams the rows into the collector. One thread steps through SQLite
+    /// (on its own read-only connection) and copies each batch of rows out;
+    /// this thread decodes the WKB and feeds the collector, so the two
+    /// overlap as the PostgreSQL server and geofold do on the PostGIS path.
+    /// At most four batches are in flight, so memory stays bounded.
     fn read(&mut self, collector: &mut UnitCollector) -> Result<(), Error> {
         collector.reserve(self.rows);
-        let reader = RowReader::new(&self.info);
-        let mut values: Vec<Option<f64>> = Vec::with_capacity(self.info.feature_columns.len());
-        self.for_each_row(|row| {
-            let fail = |column: &str, id: Option<String>, problem: String| {
-                Error::input(&self.info.table, Some(column), id, problem)
-            };
-            let id = reader
-                .id(row.get_ref(0).map_err(|e| self.column_error(&e))?)
-                .map_err(|problem| fail(&self.info.id_column, None, problem))?;
-            let geometry = reader
-                .geometry(row.get_ref(1).map_err(|e| self.column_error(&e))?)
-                .map_err(|problem| fail(&self.info.geom_column, Some(id.to_string()), problem))?;
-            let target = number(row.get_ref(2).map_err(|e| self.column_error(&e))?)
-                .map_err(|problem| fail(&self.info.target_column, Some(id.to_string()), problem))?;
-            values.clear();
-            for (index, name) in self.info.feature_columns.iter().enumerate() {
-                let value = number(row.get_ref(3 + index).map_err(|e| self.column_error(&e))?)
-                    .map_err(|problem| fail(name, Some(id.to_string()), problem))?;
-                values.push(value);
+        let (info, path, select) = (&self.info, &self.path, &self.select);
+        let n_numbers = 1 + info.feature_columns.len();
+        std::thread::scope(|scope| {
+            let (sender, receiver) = std::sync::mpsc::sync_channel::<Result<Batch, Error>>(4);
+            let producer = scope.spawn(move || produce(path, info, select, &sender));
+            let reader = RowReader::new(info);
+            let mut consumed = Ok(());
+            for batch in receiver {
+                consumed = batch.and_then(|batch| {
+                    for (row, id) in batch.ids.into_iter().enumerate() {
+                        let geometry = match batch.geometries[row] {
+                            None => RawGeometry::Null,
+                            Some((start, end)) => reader
+                                .geometry(ValueRef::Blob(&batch.bytes[start..end]))
+                                .map_err(|problem| {
+                                    Error::input(
+                                        &info.table,
+                                        Some(&info.geom_column),
+                                        Some(id.to_string()),
+                                        problem,
+                                    )
+                                })?,
+                        };
+                        let numbers = &batch.numbers[row * n_numbers..(row + 1) * n_numbers];
+                        collector.push(id, geometry, numbers[0], &numbers[1..])?;
+                    }
+                    Ok(())
+                });
+                if consumed.is_err() {
+                    // Dropping the receiver stops the producer at its next send.
+                    break;
+                }
             }
-            collector.push(id, geometry, target, &values)
+            let produced = producer
+                .join()
+                .map_err(|_| Error::Internal("the GeoPackage reader thread panicked".into()))?;
+            consumed.and(produced)
         })
     }
 }
 
-impl GpkgSource {
-    fn column_error(&self, error: &rusqlite::Error) -> Error {
-        sqlite_error(
-            &self.path,
-            &format!("reading layer {}", self.info.qualified_table),
-            error,
-        )
-    }
+/// The producer of [`GpkgSource::read`]: steps through the rows and sends batches.
+fn produce(
+    path: &Path,
+    info: &SourceInfo,
+    select: &str,
+    sender: &std::sync::mpsc::SyncSender<Result<Batch, Error>>,
+) -> Result<(), Error> {
+    let conn = open_file(path, false)?;
+    let reader = RowReader::new(info);
+    let mut batch = Batch::default();
+    let stopped = || Error::Internal("the GeoPackage reader stopped".into());
+    let stepped = each_row(&conn, path, info, select, |row| {
+        let get = |index: usize| {
+            row.get_ref(index).map_err(|e| {
+                sqlite_error(path, &format!("reading layer {}", info.qualified_table), &e)
+            })
+        };
+        let id = reader
+            .id(get(0)?)
+            .map_err(|problem| Error::input(&info.table, Some(&info.id_column), None, problem))?;
+        for (index, name) in std::iter::once(&info.target_column)
+            .chain(info.feature_columns.iter())
+            .enumerate()
+        {
+            let value = number(get(2 + index)?).map_err(|problem| {
+                Error::input(&info.table, Some(name), Some(id.to_string()), problem)
+            })?;
+            batch.numbers.push(value);
+        }
+        let geometry = match get(1)? {
+            ValueRef::Blob(bytes) => {
+                let start = batch.bytes.len();
+                batch.bytes.extend_from_slice(bytes);
+                Some((start, batch.bytes.len()))
+            }
+            ValueRef::Null => None,
+            other => {
+                return Err(Error::input(
+                    &info.table,
+                    Some(&info.geom_column),
+                    Some(id.to_string()),
+                    format!(
+                        "geometry is {}, not a GeoPackageBinary BLOB",
+                        describe(other)
+                    ),
+                ))
+            }
+        };
+        batch.geometries.push(geometry);
+        batch.ids.push(id);
+        if batch.ids.len() == BATCH_ROWS {
+            sender
+                .send(Ok(std::mem::take(&mut batch)))
+                .map_err(|_| stopped())?;
+        }
+        Ok(())
+    });
+    let last = stepped.map(|()| batch);
+    // A closed channel means the consumer stopped on an error of its own.
+    let _ = sender.send(last);
+    Ok(())
 }
 
 /// Turns the values of one row into what the collector takes.
@@ -448,7 +545,7 @@ impl<'a> RowReader<'a> {
             .map_err(|error| format!("geometry cannot be decoded: {error}"))
     }
 
-    /// Every problem of a row, each with its location.
+    /// Every problem of a row, each with its location. A good row allocates nothing.
     fn check(&self, row: &Row<'_>) -> Result<Vec<(Location, String)>, Error> {
         let info = self.info;
         let get = |index: usize| {
@@ -456,6 +553,18 @@ impl<'a> RowReader<'a> {
                 Error::Internal(format!("reading column {index} of {}: {e}", info.table))
             })
         };
+        let numbers = std::iter::once(&info.target_column).chain(info.feature_columns.iter());
+        let id = self.id(get(0)?);
+        let geometry = self.checked_blob(get(1)?).err();
+        let mut bad_numbers = Vec::new();
+        for (index, name) in numbers.enumerate() {
+            if let Err(problem) = number(get(2 + index)?) {
+                bad_numbers.push((name, problem));
+            }
+        }
+        if id.is_ok() && geometry.is_none() && bad_numbers.is_empty() {
+            return Ok(Vec::new());
+        }
         let mut problems = Vec::new();
         let mut at = |column: &str, row_id: Option<String>, problem: String| {
             problems.push((
@@ -467,7 +576,7 @@ impl<'a> RowReader<'a> {
                 problem,
             ));
         };
-        let row_id = match self.id(get(0)?) {
+        let row_id = match id {
             Ok(id) => Some(id.to_string()),
             Err(problem) => {
                 let rowid = match get(3 + info.feature_columns.len())? {
@@ -478,16 +587,11 @@ impl<'a> RowReader<'a> {
                 None
             }
         };
-        if let Err(problem) = self.checked_blob(get(1)?) {
+        if let Some(problem) = geometry {
             at(&info.geom_column, row_id.clone(), problem);
         }
-        for (index, name) in std::iter::once(&info.target_column)
-            .chain(info.feature_columns.iter())
-            .enumerate()
-        {
-            if let Err(problem) = number(get(2 + index)?) {
-                at(name, row_id.clone(), problem);
-            }
+        for (name, problem) in bad_numbers {
+            at(name, row_id.clone(), problem);
         }
         Ok(problems)
     }

@@ -13,7 +13,7 @@
 //!   are registered with `data_type = 'attributes'`;
 //! - the R-tree index follows Annex F.3 "RTree Spatial Indexes": a virtual
 //!   table, a `gpkg_extensions` row, the existing rows loaded (packed by
-//!   [`rtree`]), then the triggers.
+//!   `rtree`), then the triggers.
 //!
 //! # Version and trigger set
 //! New files declare `user_version` 10300 (GeoPackage 1.3.0): GDAL 3.6, the
@@ -105,7 +105,7 @@ const WGS84_WKT: &str = "GEOGCS[\"WGS 84\",DATUM[\"WGS_1984\",SPHEROID[\"WGS 84\
 /// geofold's results tables (without `blocks`, a feature table).
 const RESULTS_DDL: &str = include_str!("results.sql");
 
-/// Version of [`RESULTS_DDL`], recorded in `schema_version`.
+/// Version of the results tables (`results.sql`), recorded in `schema_version`.
 pub const RESULTS_VERSION: i64 = 1;
 
 /// The attribute tables of the results and their `gpkg_contents` descriptions.
@@ -388,7 +388,7 @@ pub fn create_feature_table(conn: &Connection, table: &FeatureTable) -> rusqlite
 /// Builds the (empty) R-tree from the rows already in the table, creates the
 /// triggers and sets the `gpkg_contents` extent. The index holds what Annex
 /// F.3 "Load Spatial Index Values" loads (every non-NULL, non-empty geometry),
-/// packed by [`rtree::bulk_load`] instead of inserted row by row.
+/// packed (`rtree::bulk_load`) instead of inserted row by row.
 ///
 /// # Errors
 /// SQLite errors; a malformed blob in the table.
