@@ -237,12 +237,7 @@ impl GpkgSource {
                 exit::DATA,
             )
         })?;
-        let upper = srs.definition.trim_start().to_ascii_uppercase();
-        let epsg = srs.organization.eq_ignore_ascii_case("EPSG");
-        let geographic = srs_id == 0
-            || upper.starts_with("GEOGCS[")
-            || upper.starts_with("GEOGCRS[")
-            || (epsg && GEOGRAPHIC_EPSG.contains(&srs.organization_id));
+        let geographic = is_geographic(&srs);
         let srs_name = if srs.organization.eq_ignore_ascii_case("NONE") {
             srs.name.clone()
         } else {
@@ -624,6 +619,16 @@ fn describe(value: ValueRef<'_>) -> String {
     }
 }
 
+/// Whether an SRS is longitude/latitude (see the module doc).
+fn is_geographic(srs: &Srs) -> bool {
+    let upper = srs.definition.trim_start().to_ascii_uppercase();
+    srs.srs_id == 0
+        || upper.starts_with("GEOGCS[")
+        || upper.starts_with("GEOGCRS[")
+        || (srs.organization.eq_ignore_ascii_case("EPSG")
+            && GEOGRAPHIC_EPSG.contains(&srs.organization_id))
+}
+
 /// The layer to read: the one named, or the file's only feature layer.
 fn choose_layer(conn: &Connection, path: &Path, layer: Option<&str>) -> Result<String, Error> {
     let error = |e: rusqlite::Error| sqlite_error(path, "reading gpkg_contents", &e);
@@ -716,4 +721,42 @@ fn table_columns(conn: &Connection, path: &Path, layer: &str) -> Result<Vec<Tabl
         .collect::<Result<Vec<_>, _>>()
         .map_err(error)?;
     Ok(columns)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn srs(srs_id: i32, organization: &str, code: i32, definition: &str) -> Srs {
+        Srs {
+            srs_id,
+            name: String::new(),
+            organization: organization.into(),
+            organization_id: code,
+            definition: definition.into(),
+        }
+    }
+
+    #[test]
+    fn longitude_latitude_systems_are_recognised() {
+        // GeoPackage clause 1.1.2.1.2: srs_id 0 is "undefined geographic", -1 "undefined Cartesian".
+        assert!(is_geographic(&srs(0, "NONE", 0, "undefined")));
+        assert!(!is_geographic(&srs(-1, "NONE", -1, "undefined")));
+        // WKT1 and WKT2 geographic definitions, whatever the code.
+        assert!(is_geographic(&srs(
+            100_001,
+            "local",
+            1,
+            "GEOGCS[\"WGS 84\",DATUM[\"WGS_1984\"]]"
+        )));
+        assert!(is_geographic(&srs(100_002, "local", 2, " geogcrs[\"x\"]")));
+        // EPSG:4258 (ETRS89) with an undefined definition is still degrees.
+        assert!(is_geographic(&srs(4258, "epsg", 4258, "undefined")));
+        assert!(!is_geographic(&srs(
+            32631,
+            "EPSG",
+            32631,
+            crate::demo::DEMO_SRS_WKT
+        )));
+    }
 }
