@@ -157,17 +157,11 @@ impl Summary {
             self.job, self.units_used, self.units_read, self.source.table, self.source.store
         );
         if self.units_skipped > 0 {
-            let reasons: Vec<String> = self
-                .skipped
-                .reasons()
-                .iter()
-                .map(|(reason, count)| format!("{count} {reason}"))
-                .collect();
             let _ = writeln!(
                 out,
                 "skipped {} rows: {}",
                 self.units_skipped,
-                reasons.join(", ")
+                self.skipped.describe()
             );
         }
         for run in &self.runs {

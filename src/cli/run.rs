@@ -281,46 +281,43 @@ pub fn execute(
     for extra in &plans[1..] {
         records.push(record_of(extra, Some(primary.run_id)));
     }
+    // Read and check every row before anything is written: bad input leaves
+    // no trace in the results store.
+    let clock = std::time::Instant::now();
+    let mut collector = UnitCollector::new(
+        &info.table,
+        &info.target_column,
+        &info.feature_columns,
+        strict,
+    );
+    source.read(&mut collector)?;
+    let dataset = collector.finish(&info.id_column)?;
+    if dataset.is_empty() {
+        let reasons = dataset.skipped.describe();
+        return Err(Error::input(
+            &info.table,
+            None,
+            None,
+            format!(
+                "no usable rows: {} rows read{}",
+                dataset.rows_read,
+                if reasons.is_empty() {
+                    String::new()
+                } else {
+                    format!(", all skipped ({reasons})")
+                }
+            ),
+        ));
+    }
+    tracing::info!(
+        units = dataset.len(),
+        skipped = dataset.skipped.total(),
+        elapsed_ms = clock.elapsed().as_millis() as u64,
+        "read units"
+    );
     store.prepare(&info)?;
     store.begin(&info, &records)?;
     let result: Result<Summary, Error> = (|| {
-        let clock = std::time::Instant::now();
-        let mut collector = UnitCollector::new(
-            &info.table,
-            &info.target_column,
-            &info.feature_columns,
-            strict,
-        );
-        source.read(&mut collector)?;
-        let dataset = collector.finish(&info.id_column)?;
-        if dataset.is_empty() {
-            let reasons: Vec<String> = dataset
-                .skipped
-                .reasons()
-                .iter()
-                .map(|(reason, count)| format!("{count} {reason}"))
-                .collect();
-            return Err(Error::input(
-                &info.table,
-                None,
-                None,
-                format!(
-                    "no usable rows: {} rows read{}",
-                    dataset.rows_read,
-                    if reasons.is_empty() {
-                        String::new()
-                    } else {
-                        format!(", all skipped ({})", reasons.join(", "))
-                    }
-                ),
-            ));
-        }
-        tracing::info!(
-            units = dataset.len(),
-            skipped = dataset.skipped.total(),
-            elapsed_ms = clock.elapsed().as_millis() as u64,
-            "read units"
-        );
         let clock = std::time::Instant::now();
         let outcomes = plans
             .iter()

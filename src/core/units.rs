@@ -85,6 +85,16 @@ impl SkipCounts {
             + self.missing_feature.values().sum::<u64>()
     }
 
+    /// The skipped rows as one phrase, e.g. `2 missing feature rainfall_mm, 1 no geometry`
+    /// (empty when none were skipped).
+    pub fn describe(&self) -> String {
+        self.reasons()
+            .iter()
+            .map(|(reason, count)| format!("{count} {reason}"))
+            .collect::<Vec<_>>()
+            .join(", ")
+    }
+
     /// `(reason, count)` pairs with a non-zero count, for summaries.
     pub fn reasons(&self) -> Vec<(String, u64)> {
         let mut reasons = Vec::new();

@@ -4,12 +4,14 @@
 //! GeoPackage, that the layer is a registered feature table with a geometry
 //! column (`gpkg_contents`, `gpkg_geometry_columns`) whose SRS is in
 //! `gpkg_spatial_ref_sys`, that every named column exists (all missing ones
-//! are listed) with a usable declared type, and then scans every row once:
-//! SQLite is dynamically typed, so a TEXT value in a REAL column, a NULL id, a
-//! blob that is not GeoPackageBinary, a truncated WKB or a blob with another
-//! SRS id (Requirement 33) is found here and reported with the row id, every
-//! problem at once. Reading then streams the same rows into the collector,
-//! decoding each WKB body with geozero; no geometry is kept.
+//! are listed) with a usable declared type. Reading then streams the rows,
+//! checking each as it comes: SQLite is dynamically typed, so a TEXT value in
+//! a REAL column, a NULL id, a blob that is not GeoPackageBinary, a truncated
+//! WKB or a blob with another SRS id (Requirement 33) is found and reported
+//! with its row id, every problem of the layer at once (the rest of the layer
+//! is still checked). The pipeline reads before it writes anything, so such a
+//! layer leaves every file as it was. Good rows go to the collector, each WKB
+//! body decoded with geozero; no geometry is kept.
 //!
 //! # Geographic SRS
 //! An SRS counts as longitude/latitude when its definition is a WKT
@@ -65,11 +67,9 @@ const MAX_PROBLEMS: usize = 1000;
 
 /// A GeoPackage layer opened as a source.
 pub struct GpkgSource {
-    conn: Connection,
     path: PathBuf,
     info: SourceInfo,
     select: String,
-    rows: usize,
 }
 
 struct TableColumn {
@@ -264,60 +264,11 @@ impl GpkgSource {
                 .then(|| srs.definition.clone()),
             srs_name: Some(srs_name),
         };
-        let mut source = GpkgSource {
-            conn,
+        Ok(GpkgSource {
             path: path.to_path_buf(),
             info,
             select,
-            rows: 0,
-        };
-        let clock = std::time::Instant::now();
-        source.scan()?;
-        tracing::debug!(
-            rows = source.rows,
-            elapsed_ms = clock.elapsed().as_millis() as u64,
-            "checked every row"
-        );
-        Ok(source)
-    }
-
-    /// Checks every row; see the module doc.
-    fn scan(&mut self) -> Result<(), Error> {
-        let reader = RowReader::new(&self.info);
-        let mut problems: Vec<(Location, String)> = Vec::new();
-        let mut more = 0usize;
-        let mut rows = 0usize;
-        self.for_each_row(|row| {
-            rows += 1;
-            for problem in reader.check(row)? {
-                if problems.len() < MAX_PROBLEMS {
-                    problems.push(problem);
-                } else {
-                    more += 1;
-                }
-            }
-            Ok(())
-        })?;
-        self.rows = rows;
-        if more > 0 {
-            problems.push((
-                Location {
-                    table: self.info.table.clone(),
-                    column: None,
-                    row_id: None,
-                },
-                format!("{more} further problems not listed"),
-            ));
-        }
-        if problems.is_empty() {
-            Ok(())
-        } else {
-            Err(Error::Input { problems })
-        }
-    }
-
-    fn for_each_row(&self, on_row: impl FnMut(&Row<'_>) -> Result<(), Error>) -> Result<(), Error> {
-        each_row(&self.conn, &self.path, &self.info, &self.select, on_row)
+        })
     }
 }
 
@@ -365,7 +316,6 @@ impl Source for GpkgSource {
     /// overlap as the PostgreSQL server and geofold do on the PostGIS path.
     /// At most four batches are in flight, so memory stays bounded.
     fn read(&mut self, collector: &mut UnitCollector) -> Result<(), Error> {
-        collector.reserve(self.rows);
         let (info, path, select) = (&self.info, &self.path, &self.select);
         let n_numbers = 1 + info.feature_columns.len();
         std::thread::scope(|scope| {
@@ -418,7 +368,24 @@ fn produce(
     let reader = RowReader::new(info);
     let mut batch = Batch::default();
     let stopped = || Error::Internal("the GeoPackage reader stopped".into());
+    let mut problems: Vec<(Location, String)> = Vec::new();
+    let mut unlisted = 0usize;
     let stepped = each_row(&conn, path, info, select, |row| {
+        let found = reader.check(row)?;
+        if !found.is_empty() {
+            for problem in found {
+                if problems.len() < MAX_PROBLEMS {
+                    problems.push(problem);
+                } else {
+                    unlisted += 1;
+                }
+            }
+            return Ok(());
+        }
+        if !problems.is_empty() {
+            // Only problems are wanted now: the rows will not be used.
+            return Ok(());
+        }
         let get = |index: usize| {
             row.get_ref(index).map_err(|e| {
                 sqlite_error(path, &format!("reading layer {}", info.qualified_table), &e)
@@ -464,7 +431,23 @@ fn produce(
         }
         Ok(())
     });
-    let last = stepped.map(|()| batch);
+    if unlisted > 0 {
+        problems.push((
+            Location {
+                table: info.table.clone(),
+                column: None,
+                row_id: None,
+            },
+            format!("{unlisted} further problems not listed"),
+        ));
+    }
+    let last = stepped.and_then(|()| {
+        if problems.is_empty() {
+            Ok(batch)
+        } else {
+            Err(Error::Input { problems })
+        }
+    });
     // A closed channel means the consumer stopped on an error of its own.
     let _ = sender.send(last);
     Ok(())
