@@ -216,6 +216,56 @@ pub fn check_job(job: &str) -> Result<(), Error> {
     Ok(())
 }
 
+/// The columns a run reads, in order: id, geometry, target, features.
+pub fn wanted_columns<'a>(id: &'a str, geom: &'a str, columns: &'a ColumnSpec) -> Vec<&'a str> {
+    [id, geom, columns.target.as_str()]
+        .into_iter()
+        .chain(columns.features.iter().map(String::as_str))
+        .collect()
+}
+
+/// Every wanted column that `exists` does not know, as `column a, column b`;
+/// None when all exist.
+pub fn missing_columns(wanted: &[&str], exists: impl Fn(&str) -> bool) -> Option<String> {
+    let missing: Vec<String> = wanted
+        .iter()
+        .filter(|name| !exists(name))
+        .map(|name| format!("column {name}"))
+        .collect();
+    (!missing.is_empty()).then(|| missing.join(", "))
+}
+
+/// Checks the fixed properties a results store recorded when it was created
+/// (`store_settings`: `unit_id_type`, `block_srid`) against what this source
+/// needs. `elsewhere` says where to write instead.
+///
+/// # Errors
+/// [`Error::Store`] naming the property that differs.
+pub fn check_store_settings(
+    store: &str,
+    settings: &[(String, String)],
+    unit_id_type: &str,
+    block_srid: i32,
+    elsewhere: &str,
+) -> Result<(), Error> {
+    for (key, value) in settings {
+        let expected = match key.as_str() {
+            "unit_id_type" => unit_id_type.to_string(),
+            "block_srid" => block_srid.to_string(),
+            _ => continue,
+        };
+        if *value != expected {
+            return Err(Error::Store {
+                store: store.to_string(),
+                problem: format!(
+                    "it holds results with {key} {value}, but this source needs {expected}; {elsewhere}"
+                ),
+            });
+        }
+    }
+    Ok(())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -227,5 +277,29 @@ mod tests {
         assert!(check_job(&default_job("x\"; DROP TABLE y; --")).is_ok());
         assert!(check_job("runs").is_err());
         assert!(check_job("Bad").is_err());
+    }
+
+    #[test]
+    fn missing_columns_are_all_listed() {
+        let present = ["id", "geom", "y"];
+        let exists = |name: &str| present.contains(&name);
+        assert_eq!(missing_columns(&["id", "geom", "y"], exists), None);
+        assert_eq!(
+            missing_columns(&["id", "rain", "geom", "soil"], exists).as_deref(),
+            Some("column rain, column soil")
+        );
+    }
+
+    #[test]
+    fn a_store_made_for_another_id_kind_or_srid_is_refused() {
+        let settings = vec![
+            ("unit_id_type".to_string(), "bigint".to_string()),
+            ("block_srid".to_string(), "32631".to_string()),
+        ];
+        assert!(check_store_settings("s", &settings, "bigint", 32631, "elsewhere").is_ok());
+        let error = check_store_settings("s", &settings, "text", 32631, "elsewhere").unwrap_err();
+        assert!(error.to_string().contains("unit_id_type bigint"), "{error}");
+        assert_eq!(error.exit_code(), crate::error::exit::DATA);
+        assert!(check_store_settings("s", &settings, "bigint", 3035, "elsewhere").is_err());
     }
 }

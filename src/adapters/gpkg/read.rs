@@ -29,7 +29,7 @@ use rusqlite::{Connection, OptionalExtension, Row};
 
 use super::schema::Srs;
 use super::{blob, check_geopackage, file_error, open_file, quote, sqlite_error};
-use crate::adapters::{ColumnSpec, Source, SourceInfo};
+use crate::adapters::{missing_columns, wanted_columns, ColumnSpec, Source, SourceInfo};
 use crate::core::units::{IdKind, RawGeometry, UnitCollector, UnitId};
 use crate::error::{exit, Error, Location};
 
@@ -149,26 +149,12 @@ impl GpkgSource {
             }
         };
         let geom_column = columns.geom.clone().unwrap_or(registered_geom.clone());
-        let wanted: Vec<&str> = [
-            id_column.as_str(),
-            geom_column.as_str(),
-            columns.target.as_str(),
-        ]
-        .into_iter()
-        .chain(columns.features.iter().map(String::as_str))
-        .collect();
-        let missing: Vec<String> = wanted
-            .iter()
-            .filter(|name| !table_columns.iter().any(|c| &c.name == *name))
-            .map(|name| format!("column {name}"))
-            .collect();
-        if !missing.is_empty() {
+        let wanted = wanted_columns(&id_column, &geom_column, columns);
+        if let Some(missing) =
+            missing_columns(&wanted, |name| table_columns.iter().any(|c| c.name == name))
+        {
             return Err(Error::NotFound {
-                what: format!(
-                    "{} in layer {layer} of {}",
-                    missing.join(", "),
-                    path.display()
-                ),
+                what: format!("{missing} in layer {layer} of {}", path.display()),
             });
         }
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);

@@ -21,7 +21,9 @@ use super::schema::{self, FeatureTable, Srs, TriggerSet};
 use super::{
     blob, check_geopackage, directory_of, file_error, open_file, quote, sqlite_error, NewFile,
 };
-use crate::adapters::{wkb, FinishedRun, ResultStore, RunRecord, SourceInfo, StoreReport};
+use crate::adapters::{
+    check_store_settings, wkb, FinishedRun, ResultStore, RunRecord, SourceInfo, StoreReport,
+};
 use crate::core::folds::SchemeSpec;
 use crate::core::geometry::cell_polygon;
 use crate::core::units::{Dataset, IdKind, UnitId};
@@ -185,21 +187,13 @@ pub(crate) fn check_results(
         .map_err(error)?
         .collect::<Result<_, _>>()
         .map_err(error)?;
-    for (key, value) in settings {
-        let expected = match key.as_str() {
-            "unit_id_type" => unit_id_type.to_string(),
-            "block_srid" => block_srid.to_string(),
-            _ => continue,
-        };
-        if value != expected {
-            return Err(Error::Store {
-                store,
-                problem: format!(
-                    "it holds results with {key} {value}, but this source needs {expected}; write the results to another file"
-                ),
-            });
-        }
-    }
+    check_store_settings(
+        &store,
+        &settings,
+        unit_id_type,
+        block_srid,
+        "write the results to another file",
+    )?;
     Ok(true)
 }
 

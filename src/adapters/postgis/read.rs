@@ -12,7 +12,7 @@ use geozero::ToGeo;
 
 use super::copy::{read_float8, read_int8, CopyDecoder};
 use super::{database_error, quote_ident, split_qualified, Session};
-use crate::adapters::{ColumnSpec, Source, SourceInfo};
+use crate::adapters::{missing_columns, wanted_columns, ColumnSpec, Source, SourceInfo};
 use crate::core::units::{IdKind, RawGeometry, UnitCollector, UnitId};
 use crate::error::{Error, Location};
 
@@ -131,22 +131,12 @@ impl PostgisSource {
                 }
             }
         };
-        let wanted: Vec<&str> = [
-            id_column.as_str(),
-            geom_column.as_str(),
-            columns.target.as_str(),
-        ]
-        .into_iter()
-        .chain(columns.features.iter().map(String::as_str))
-        .collect();
-        let missing: Vec<String> = wanted
-            .iter()
-            .filter(|name| !table_columns.iter().any(|c| &c.name == *name))
-            .map(|name| format!("column {name}"))
-            .collect();
-        if !missing.is_empty() {
+        let wanted = wanted_columns(&id_column, &geom_column, columns);
+        if let Some(missing) =
+            missing_columns(&wanted, |name| table_columns.iter().any(|c| c.name == name))
+        {
             return Err(Error::NotFound {
-                what: format!("{} in table {display}", missing.join(", ")),
+                what: format!("{missing} in table {display}"),
             });
         }
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);

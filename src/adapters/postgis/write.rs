@@ -15,7 +15,9 @@ use tokio_postgres::Transaction;
 
 use super::copy::CopyEncoder;
 use super::{database_error, quote_ident, quote_literal, Session};
-use crate::adapters::{wkb, FinishedRun, ResultStore, RunRecord, SourceInfo, StoreReport};
+use crate::adapters::{
+    check_store_settings, wkb, FinishedRun, ResultStore, RunRecord, SourceInfo, StoreReport,
+};
 use crate::core::geometry::cell_polygon;
 use crate::core::units::{Dataset, IdKind, UnitId};
 use crate::error::Error;
@@ -107,23 +109,15 @@ impl ResultStore for PostgisStore {
                 .query(&format!("SELECT key, value FROM {schema}.store_settings"), &[])
                 .await
                 .map_err(|e| database_error(&action, &e))?;
-            for row in settings {
-                let key: String = row.get(0);
-                let value: String = row.get(1);
-                let expected = match key.as_str() {
-                    "unit_id_type" => id_type.to_string(),
-                    "block_srid" => srid.to_string(),
-                    _ => continue,
-                };
-                if value != expected {
-                    return Err(Error::Store {
-                        store,
-                        problem: format!(
-                            "it holds results with {key} {value}, but this source needs {expected}; use another --results-schema"
-                        ),
-                    });
-                }
-            }
+            let settings: Vec<(String, String)> =
+                settings.iter().map(|row| (row.get(0), row.get(1))).collect();
+            check_store_settings(
+                &store,
+                &settings,
+                id_type,
+                srid,
+                "use another --results-schema",
+            )?;
             tx.commit().await.map_err(|e| database_error(&action, &e))
         })
     }
