@@ -183,12 +183,23 @@ pgt_start() {
         pgt_die "initdb failed"
     fi
 
+    # A self-signed certificate so tests can check that sslmode=require encrypts.
+    local ssl_opts=""
+    if command -v openssl >/dev/null 2>&1 \
+            && pgt_as_pg openssl req -new -x509 -nodes -days 2 -subj "/CN=localhost" \
+                -keyout "$dir/data/server.key" -out "$dir/data/server.crt" >"$dir/openssl.log" 2>&1; then
+        pgt_as_pg chmod 0600 "$dir/data/server.key"
+        ssl_opts="-c ssl=on"
+    else
+        pgt_log "no certificate could be made (openssl missing or failed): TLS stays off"
+    fi
+
     local port attempt started=
     for attempt in 1 2 3 4 5; do
         port=$(pgt_free_port) || pgt_die "could not find a free TCP port on 127.0.0.1"
         pgt_log "starting postgres on 127.0.0.1:$port (attempt $attempt)"
         if pgt_as_pg "$PGT_BIN/pg_ctl" -w -t 120 -D "$dir/data" \
-                -o "-c listen_addresses=127.0.0.1 -p $port -k $dir -c fsync=off -c synchronous_commit=off -c full_page_writes=off -c max_wal_size=4GB -c shared_buffers=512MB ${PG_THROWAWAY_EXTRA_OPTS:-}" \
+                -o "-c listen_addresses=127.0.0.1 -p $port -k $dir -c fsync=off -c synchronous_commit=off -c full_page_writes=off -c max_wal_size=4GB -c shared_buffers=512MB $ssl_opts ${PG_THROWAWAY_EXTRA_OPTS:-}" \
                 -l "$dir/log" start >&2; then
             started=1
             break

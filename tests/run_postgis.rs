@@ -1123,3 +1123,41 @@ fn without_db_the_libpq_environment_is_used_and_application_name_is_geofold() {
     assert_ne!(code(&output), 0);
     assert_eq!(json(&output)["status"], "failed");
 }
+
+#[test]
+fn sslmode_require_encrypts_the_connection_and_disable_does_not() {
+    // The server says whether a session is encrypted (pg_stat_ssl, PostgreSQL
+    // documentation "The Statistics Collector"); this view shows its rows only to
+    // TLS sessions. scripts/pg-throwaway.sh starts the test server with a
+    // self-signed certificate; sslmode=require encrypts without verifying it,
+    // as libpq does (PostgreSQL documentation, "SSL Mode Descriptions").
+    let case = Case::new("tls");
+    create_units(&case, "units", IdType::Integer);
+    case.script(
+        "CREATE VIEW {s}.over_tls AS SELECT * FROM {s}.units
+         WHERE (SELECT ssl FROM pg_stat_ssl WHERE pid = pg_backend_pid());",
+    );
+    let arguments = args(&[&grid("{s}.over_tls", "a,b", "200", "3"), &["--json"]]);
+    let command = |mode: &str| {
+        let mut command = case.command(&arguments);
+        for key in ["PGAPPNAME", "PGPASSWORD", "PGSERVICE", "PGOPTIONS"] {
+            command.env_remove(key);
+        }
+        command.envs(libpq_environment(&db_uri()));
+        command.env("PGSSLMODE", mode);
+        run(command)
+    };
+    for mode in ["require", "prefer"] {
+        let output = command(mode);
+        assert_eq!(code(&output), 0, "sslmode={mode}");
+        assert_eq!(json(&output)["units_read"], 36, "sslmode={mode}");
+    }
+    // Unencrypted, the view is empty: no usable rows.
+    let output = command("disable");
+    assert_eq!(code(&output), 65);
+    assert!(json(&output)["error"]["message"]
+        .as_str()
+        .is_some_and(|m| m.contains("no usable rows")));
+    // Certificate verification is not offered, so it is refused, not weakened.
+    assert_eq!(code(&command("verify-full")), 78);
+}

@@ -26,7 +26,8 @@ EXIT STATUS
 ENVIRONMENT
   Without --db, and for whatever --db leaves out, PGHOST, PGPORT, PGDATABASE, PGUSER,
   PGPASSWORD, PGSSLMODE, PGAPPNAME and PGCONNECT_TIMEOUT are read as libpq does; a missing
-  password is looked up in PGPASSFILE or ~/.pgpass. RUST_LOG sets the log filter.";
+  password is looked up in PGPASSFILE or ~/.pgpass. sslmode=prefer (the default) and require
+  encrypt without verifying the server certificate, as libpq does. RUST_LOG sets the log filter.";
 
 /// Spatial cross-validation of predictive models, in and out of PostGIS and GeoPackage.
 ///

@@ -10,9 +10,10 @@
 //! exists, else `localhost`; port 5432; user = the OS user; database = the user;
 //! `application_name` = `geofold` unless the caller names one.
 //!
-//! Only `sslmode` values `disable`, `prefer` and `require` are accepted, and
-//! geofold speaks no TLS yet: `require` is refused with a configuration error
-//! rather than silently downgraded.
+//! `sslmode` takes `disable`, `prefer` (the default: TLS when the server offers
+//! it) and `require`, with libpq's meaning: encrypted, certificate not verified
+//! (see [`super::tls`]). `verify-ca` and `verify-full` are refused as
+//! configuration errors rather than silently weakened.
 
 use std::path::PathBuf;
 use std::str::FromStr;
@@ -85,11 +86,6 @@ pub fn resolve(db: Option<&str>, env: EnvLookup<'_>) -> Result<Config, Error> {
             config.ssl_mode(parse_ssl_mode(&mode)?);
         }
     }
-    if config.get_ssl_mode() == SslMode::Require {
-        return Err(Error::Config(
-            "sslmode=require: this build of geofold has no TLS support; use sslmode=disable or prefer on a trusted network".into(),
-        ));
-    }
     if config.get_application_name().is_none() {
         let name = env("PGAPPNAME").unwrap_or_else(|| "geofold".to_string());
         config.application_name(&name);
@@ -114,7 +110,7 @@ fn parse_ssl_mode(mode: &str) -> Result<SslMode, Error> {
         "prefer" | "allow" => Ok(SslMode::Prefer),
         "require" => Ok(SslMode::Require),
         other => Err(Error::Config(format!(
-            "unsupported sslmode {other:?}: use disable, prefer or require"
+            "unsupported sslmode {other:?}: geofold offers disable, prefer and require (encrypted, certificate not verified)"
         ))),
     }
 }

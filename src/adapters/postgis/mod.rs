@@ -4,15 +4,18 @@
 //! - [`connect`]: libpq-style connection parameters.
 //! - [`copy`]: the binary COPY format.
 //! - [`read`]: inspecting and streaming the source table.
+//! - [`tls`]: encryption for `sslmode=prefer` and `require`.
 //! - [`write`](mod@write): the results schema, its migrations, and writing runs.
 
 pub mod connect;
 pub mod copy;
 pub mod load;
 pub mod read;
+pub mod tls;
 pub mod write;
 
 use tokio::runtime::Runtime;
+use tokio_postgres::config::SslMode;
 use tokio_postgres::{Client, NoTls};
 
 use crate::error::Error;
@@ -42,7 +45,7 @@ impl Session {
             .enable_all()
             .build()
             .map_err(|e| Error::Internal(format!("cannot start the async runtime: {e}")))?;
-        let (client, connection) = runtime.block_on(config.connect(NoTls)).map_err(|error| {
+        let connect_error = |error: tokio_postgres::Error| {
             let action = format!("connecting to {description}");
             match error.code() {
                 Some(_) => database_error(&action, &error),
@@ -51,12 +54,21 @@ impl Session {
                     source: Box::new(error),
                 },
             }
-        })?;
-        runtime.spawn(async move {
-            if let Err(error) = connection.await {
-                tracing::error!(%error, "database connection ended");
-            }
-        });
+        };
+        let client = if config.get_ssl_mode() == SslMode::Disable {
+            let (client, connection) = runtime
+                .block_on(config.connect(NoTls))
+                .map_err(connect_error)?;
+            runtime.spawn(drive(connection));
+            client
+        } else {
+            let tls = tls::encrypt_only()?;
+            let (client, connection) = runtime
+                .block_on(config.connect(tls))
+                .map_err(connect_error)?;
+            runtime.spawn(drive(connection));
+            client
+        };
         let session = Session {
             runtime,
             client,
@@ -81,6 +93,17 @@ impl Session {
             });
         }
         Ok(())
+    }
+}
+
+/// Runs a connection until it ends, logging how it ended.
+async fn drive<S, T>(connection: tokio_postgres::Connection<S, T>)
+where
+    S: tokio::io::AsyncRead + tokio::io::AsyncWrite + Unpin,
+    T: tokio::io::AsyncRead + tokio::io::AsyncWrite + Unpin,
+{
+    if let Err(error) = connection.await {
+        tracing::error!(%error, "database connection ended");
     }
 }
 
