@@ -1026,13 +1026,17 @@ fn a_run_failing_while_writing_leaves_no_rows_and_the_view_keeps_the_last_succes
     ]);
     let first = run_ok(&case, &arguments);
     case.bind("first", &run_id(&first, 0));
-    // unit_errors is loaded after fold_members and predictions, so the failure
-    // comes in the middle of writing.
+    // unit_errors is loaded after predictions, so the failure comes in the
+    // middle of writing. A statement-level trigger fires once the COPY has all
+    // its rows (PostgreSQL "COPY" docs: AFTER STATEMENT triggers fire at its
+    // end), so the server's message reliably reaches geofold; a row-level one
+    // can stop the COPY while rows are still being sent, and the client
+    // library then reports only that the load ended early.
     case.script(
         "CREATE FUNCTION {r}.refuse() RETURNS trigger LANGUAGE plpgsql
              AS $$ BEGIN RAISE EXCEPTION 'refused by the test trigger'; END $$;
-         CREATE TRIGGER refuse BEFORE INSERT ON {r}.unit_errors
-             FOR EACH ROW EXECUTE FUNCTION {r}.refuse();",
+         CREATE TRIGGER refuse AFTER INSERT ON {r}.unit_errors
+             FOR EACH STATEMENT EXECUTE FUNCTION {r}.refuse();",
     );
     let output = case.geofold_run(&arguments);
     let stderr = String::from_utf8_lossy(&output.stderr);
@@ -1081,6 +1085,24 @@ fn libpq_environment(uri: &str) -> Vec<(&'static str, String)> {
     environment
 }
 
+/// `geofold run ARGS` with no `--db`: the connection comes from the PG*
+/// variables of the test URI plus `extra`; other libpq variables are cleared.
+fn run_with_environment(case: &Case, arguments: &[&str], extra: &[(&str, &str)]) -> Output {
+    let mut command = case.command(arguments);
+    for key in [
+        "PGAPPNAME",
+        "PGSSLMODE",
+        "PGPASSWORD",
+        "PGSERVICE",
+        "PGOPTIONS",
+    ] {
+        command.env_remove(key);
+    }
+    command.envs(libpq_environment(&db_uri()));
+    command.envs(extra.iter().copied());
+    run(command)
+}
+
 #[test]
 fn without_db_the_libpq_environment_is_used_and_application_name_is_geofold() {
     let case = Case::new("environment");
@@ -1092,22 +1114,9 @@ fn without_db_the_libpq_environment_is_used_and_application_name_is_geofold() {
          WHERE current_setting('application_name') = 'geofold';",
     );
     let arguments = args(&[&grid("{s}.for_geofold", "a,b", "200", "3"), &["--json"]]);
-    let command = |app_name: Option<&str>| {
-        let mut command = case.command(&arguments);
-        for key in [
-            "PGAPPNAME",
-            "PGSSLMODE",
-            "PGPASSWORD",
-            "PGSERVICE",
-            "PGOPTIONS",
-        ] {
-            command.env_remove(key);
-        }
-        command.envs(libpq_environment(&db_uri()));
-        if let Some(name) = app_name {
-            command.env("PGAPPNAME", name);
-        }
-        run(command)
+    let command = |app_name: Option<&str>| match app_name {
+        Some(name) => run_with_environment(&case, &arguments, &[("PGAPPNAME", name)]),
+        None => run_with_environment(&case, &arguments, &[]),
     };
     let output = command(None);
     assert_eq!(code(&output), 0);
@@ -1138,15 +1147,7 @@ fn sslmode_require_encrypts_the_connection_and_disable_does_not() {
          WHERE (SELECT ssl FROM pg_stat_ssl WHERE pid = pg_backend_pid());",
     );
     let arguments = args(&[&grid("{s}.over_tls", "a,b", "200", "3"), &["--json"]]);
-    let command = |mode: &str| {
-        let mut command = case.command(&arguments);
-        for key in ["PGAPPNAME", "PGPASSWORD", "PGSERVICE", "PGOPTIONS"] {
-            command.env_remove(key);
-        }
-        command.envs(libpq_environment(&db_uri()));
-        command.env("PGSSLMODE", mode);
-        run(command)
-    };
+    let command = |mode: &str| run_with_environment(&case, &arguments, &[("PGSSLMODE", mode)]);
     for mode in ["require", "prefer"] {
         let output = command(mode);
         assert_eq!(code(&output), 0, "sslmode={mode}");

@@ -280,16 +280,35 @@ fn put_id(encoder: &mut CopyEncoder, id: &UnitId) {
 }
 
 /// Sends an encoder's buffered bytes whenever it passes [`CHUNK`].
-async fn pump<S>(sink: &mut std::pin::Pin<&mut S>, encoder: &mut CopyEncoder) -> Result<(), Error>
+async fn pump<S>(
+    sink: &mut std::pin::Pin<&mut S>,
+    encoder: &mut CopyEncoder,
+    action: &str,
+) -> Result<(), Error>
 where
     S: futures_util::Sink<Bytes, Error = tokio_postgres::Error>,
 {
     if let Some(bytes) = encoder.take_if_larger(CHUNK) {
-        sink.send(bytes)
-            .await
-            .map_err(|e| database_error("sending COPY data", &e))?;
+        sink.send(bytes).await.map_err(|e| send_error(action, &e))?;
     }
     Ok(())
+}
+
+/// The error of a failed COPY send. When the server refuses the data while
+/// rows are still being sent, tokio-postgres drops the server's message and
+/// reports a closed channel; say what that means instead of "connection closed".
+fn send_error(action: &str, error: &tokio_postgres::Error) -> Error {
+    if error.as_db_error().is_some() {
+        return database_error(action, error);
+    }
+    Error::Database {
+        action: action.to_string(),
+        message: format!(
+            "the server ended the load early ({error}): it refused the data or the connection dropped; \
+             the server log has the reason"
+        ),
+        sqlstate: None,
+    }
 }
 
 /// Runs one `COPY … FROM STDIN (FORMAT binary)`, with `fill` encoding the rows.
@@ -310,11 +329,11 @@ async fn copy_in(
     let mut sink = pin!(sink);
     let mut encoder = CopyEncoder::new();
     while fill(&mut encoder) {
-        pump(&mut sink, &mut encoder).await?;
+        pump(&mut sink, &mut encoder, &action).await?;
     }
     sink.send(encoder.finish())
         .await
-        .map_err(|e| database_error(&action, &e))?;
+        .map_err(|e| send_error(&action, &e))?;
     let written = sink
         .as_mut()
         .finish()
