@@ -216,6 +216,14 @@ pub fn check_job(job: &str) -> Result<(), Error> {
     Ok(())
 }
 
+/// Adds `rows` to the count of `table` in a store's report, keeping first-seen order.
+pub fn add_count(counts: &mut Vec<(String, u64)>, table: &str, rows: u64) {
+    match counts.iter_mut().find(|(name, _)| name == table) {
+        Some(entry) => entry.1 += rows,
+        None => counts.push((table.to_string(), rows)),
+    }
+}
+
 /// The columns a run reads, in order: id, geometry, target, features.
 pub fn wanted_columns<'a>(id: &'a str, geom: &'a str, columns: &'a ColumnSpec) -> Vec<&'a str> {
     [id, geom, columns.target.as_str()]

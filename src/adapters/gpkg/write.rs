@@ -22,7 +22,8 @@ use super::{
     blob, check_geopackage, directory_of, file_error, open_file, quote, sqlite_error, NewFile,
 };
 use crate::adapters::{
-    check_store_settings, wkb, FinishedRun, ResultStore, RunRecord, SourceInfo, StoreReport,
+    add_count, check_store_settings, wkb, FinishedRun, ResultStore, RunRecord, SourceInfo,
+    StoreReport,
 };
 use crate::core::folds::SchemeSpec;
 use crate::core::geometry::cell_polygon;
@@ -654,13 +655,6 @@ impl ResultStore for GpkgStore {
 }
 
 /// Adds a count to the per-table totals.
-fn add_count(counts: &mut Vec<(String, u64)>, table: &str, rows: u64) {
-    match counts.iter_mut().find(|(name, _)| name == table) {
-        Some(entry) => entry.1 += rows,
-        None => counts.push((table.to_string(), rows)),
-    }
-}
-
 fn write_runs(
     conn: &mut Connection,
     path: &Path,

@@ -16,7 +16,8 @@ use tokio_postgres::Transaction;
 use super::copy::CopyEncoder;
 use super::{database_error, quote_ident, quote_literal, Session};
 use crate::adapters::{
-    check_store_settings, wkb, FinishedRun, ResultStore, RunRecord, SourceInfo, StoreReport,
+    add_count, check_store_settings, wkb, FinishedRun, ResultStore, RunRecord, SourceInfo,
+    StoreReport,
 };
 use crate::core::geometry::cell_polygon;
 use crate::core::units::{Dataset, IdKind, UnitId};
@@ -185,10 +186,7 @@ impl ResultStore for PostgisStore {
             let mut counts: Vec<(String, u64)> = Vec::new();
             for run in runs {
                 for (table, rows) in write_run(&tx, &names, info, dataset, run).await? {
-                    match counts.iter_mut().find(|(name, _)| *name == table) {
-                        Some(entry) => entry.1 += rows,
-                        None => counts.push((table, rows)),
-                    }
+                    add_count(&mut counts, &table, rows);
                 }
             }
             // Summarise the BRIN ranges the COPYs just filled, so queries by run
