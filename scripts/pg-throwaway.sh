@@ -3,7 +3,7 @@
 # geofold's tests, demo and benchmarks.
 #
 # Usage:
-#   scripts/pg-throwaway.sh ensure-packages   install postgres/postgis/gdal/numpy if missing (root, Debian 12)
+#   scripts/pg-throwaway.sh ensure-packages   install postgres/postgis/gdal/python3 if missing (root, Debian 12)
 #   scripts/pg-throwaway.sh start DIR         init + start a cluster under DIR; prints ONE line:
 #                                             postgresql://postgres@127.0.0.1:PORT/geofold_test
 #   scripts/pg-throwaway.sh stop DIR          stop the cluster under DIR and remove DIR (never fails)
@@ -98,16 +98,11 @@ pgt_ensure_packages() {
         pgt_apt_install gdal-bin
     fi
     if ! command -v python3 >/dev/null 2>&1; then
-        pgt_apt_install python3 python3-numpy
+        pgt_apt_install python3 python3-venv
     fi
-    if ! python3 -c 'import numpy' >/dev/null 2>&1; then
-        pgt_log "numpy missing for $(command -v python3); installing with pip"
-        if ! python3 -m pip install --quiet numpy >&2; then
-            # Debian's system python refuses pip installs (PEP 668); use the distro package.
-            pgt_log "pip install failed; falling back to apt package python3-numpy"
-            pgt_apt_install python3-numpy
-        fi
-        python3 -c 'import numpy' >/dev/null 2>&1 || pgt_die "python3 still cannot import numpy"
+    # Headless Chromium opens the HTML reports in the report tests.
+    if ! command -v chromium >/dev/null 2>&1; then
+        pgt_apt_install chromium
     fi
 }
 

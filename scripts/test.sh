@@ -14,6 +14,9 @@ ROOT=$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)
 PGT="$ROOT/scripts/pg-throwaway.sh"
 
 bash "$PGT" ensure-packages
+# Python reference libraries in the project's own virtual environment.
+GEOFOLD_PYTHON=$(bash "$ROOT/scripts/python-env.sh")
+export GEOFOLD_PYTHON
 
 # /tmp rather than $TMPDIR: the postgres OS user must be able to reach the
 # directory, and the unix socket path inside it must stay short.

@@ -645,24 +645,7 @@ fn held_out_predictions_match_a_numpy_refit_on_the_folds_read_back() {
 
 /// Runs tests/fixtures/ols_refit.py on psql rows; returns `repetition|unit_id` → prediction.
 fn numpy_refit(input: &str) -> BTreeMap<String, f64> {
-    use std::io::Write;
-    let script = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/fixtures/ols_refit.py");
-    let mut child = Command::new("python3")
-        .arg(script)
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .spawn()
-        .expect("python3 runs");
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(input.as_bytes())
-        .unwrap();
-    let output = child.wait_with_output().unwrap();
-    assert!(output.status.success(), "ols_refit.py failed");
-    String::from_utf8(output.stdout)
-        .unwrap()
+    common::python_script("fixtures/ols_refit.py", &[], input)
         .lines()
         .map(|line| {
             let (key, value) = line.rsplit_once('|').unwrap();

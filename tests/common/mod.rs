@@ -152,3 +152,44 @@ pub fn check_qgis_layer(
         "{key} is unique in {schema}.{layer}"
     );
 }
+
+/// The Python of the project's own virtual environment, holding the test-time
+/// reference libraries (numpy, scipy, statsmodels, scikit-learn, libpysal,
+/// esda; `tests/python/requirements.txt`). `bash scripts/test.sh` creates it
+/// (`scripts/python-env.sh`) and exports its path as `GEOFOLD_PYTHON`.
+pub fn python() -> Command {
+    let path = std::env::var("GEOFOLD_PYTHON").expect(
+        "GEOFOLD_PYTHON is not set: run the suite with `bash scripts/test.sh`, \
+         or set it to the python printed by `bash scripts/python-env.sh`",
+    );
+    Command::new(path)
+}
+
+/// Runs a reference script from `tests/python/` (or `tests/fixtures/`) with
+/// the reference Python, feeding `input` on stdin; returns stdout. Panics
+/// with the script's stderr when it fails.
+pub fn python_script(script: &str, args: &[&str], input: &str) -> String {
+    use std::io::Write;
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests").join(script);
+    let mut child = python()
+        .arg(&path)
+        .args(args)
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("the reference python runs");
+    child
+        .stdin
+        .take()
+        .expect("stdin")
+        .write_all(input.as_bytes())
+        .expect("write to the reference script");
+    let output = child.wait_with_output().expect("reference script finishes");
+    assert!(
+        output.status.success(),
+        "{script} failed:\n{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    String::from_utf8(output.stdout).expect("UTF-8 from the reference script")
+}
