@@ -6,6 +6,7 @@ pub mod folds;
 pub mod geometry;
 pub mod metrics;
 pub mod models;
+pub mod neighbours;
 pub mod units;
 pub mod validate;
 

@@ -170,7 +170,9 @@ pub fn python() -> Command {
 /// with the script's stderr when it fails.
 pub fn python_script(script: &str, args: &[&str], input: &str) -> String {
     use std::io::Write;
-    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests").join(script);
+    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests")
+        .join(script);
     let mut child = python()
         .arg(&path)
         .args(args)
