@@ -11,6 +11,8 @@ use std::fmt;
 pub mod exit {
     /// Everything worked.
     pub const OK: i32 = 0;
+    /// Busy: another run of the same job holds its lock; nothing was done.
+    pub const BUSY: i32 = 2;
     /// Usage error: bad flags or arguments (EX_USAGE).
     pub const USAGE: i32 = 64;
     /// Bad input data: duplicate ids, a skipped row under `--strict`, an unfittable fold (EX_DATAERR).
@@ -88,13 +90,35 @@ pub enum Error {
         /// The model family.
         model: String,
         /// What is wrong, naming the features involved.
-        problem: String,
+        problem: crate::core::models::FitError,
+    },
+    /// Another run of the same job holds the job's lock.
+    #[error("busy: {what}")]
+    Busy {
+        /// Which job and who holds it.
+        what: String,
+    },
+    /// A lock or statement timeout ran out.
+    #[error("timed out while {action}: {waited}")]
+    Timeout {
+        /// What geofold was doing.
+        action: String,
+        /// What it waited for and how long.
+        waited: String,
+    },
+    /// The server or the file system refused for lack of a privilege.
+    #[error("permission denied while {action}: {message}")]
+    Permission {
+        /// What geofold was doing.
+        action: String,
+        /// What is missing and the grant that gives it.
+        message: String,
     },
     /// The fold scheme cannot be built on these units with these options.
     #[error("cannot build folds: {0}")]
     Folds(String),
     /// The server could not be reached or is missing something it needs.
-    #[error("database unavailable while {action}: {source}")]
+    #[error("database unavailable while {action}: {}", chain(source.as_ref()))]
     Unavailable {
         /// What geofold was doing.
         action: String,
@@ -118,8 +142,16 @@ pub enum Error {
         path: String,
         /// What went wrong; names layer and row id where known.
         problem: String,
-        /// The exit code that fits (66 missing, 65 bad content, 73 cannot create, 74 I/O, 75 locked).
-        code: i32,
+        /// What kind of problem, which decides the exit code.
+        kind: FileProblem,
+    },
+    /// An object geofold must create is in the way or cannot be made.
+    #[error("cannot create {what}: {problem}")]
+    CannotCreate {
+        /// The table, view, schema or file.
+        what: String,
+        /// Why.
+        problem: String,
     },
     /// The results store already holds results of another kind (id type or SRID).
     #[error("results store {store}: {problem}")]
@@ -132,6 +164,41 @@ pub enum Error {
     /// A bug in geofold.
     #[error("internal error: {0}")]
     Internal(String),
+}
+
+/// An error and its causes, joined by ": " (each cause once: a cause whose
+/// text its parent already contains is not repeated).
+pub fn chain(error: &(dyn std::error::Error + 'static)) -> String {
+    let mut text = error.to_string();
+    let mut source = error.source();
+    while let Some(cause) = source {
+        let cause_text = cause.to_string();
+        if !text.contains(&cause_text) {
+            text.push_str(": ");
+            text.push_str(&cause_text);
+        }
+        source = cause.source();
+    }
+    text
+}
+
+/// What kind of file problem an [`Error::File`] is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FileProblem {
+    /// The file, layer or column does not exist.
+    Missing,
+    /// The file's content cannot be used (not a GeoPackage, bad rows).
+    BadContent,
+    /// The file cannot be created.
+    CannotCreate,
+    /// Reading or writing failed.
+    Io,
+    /// Another program holds a lock longer than geofold waits.
+    Locked,
+    /// The file system refused.
+    Permission,
+    /// An SQLite error geofold does not expect: a bug.
+    Unexpected,
 }
 
 fn format_problems(problems: &[(Location, String)]) -> String {
@@ -176,9 +243,21 @@ impl Error {
             Error::Input { .. } | Error::Fit { .. } | Error::Folds(_) | Error::Store { .. } => {
                 exit::DATA
             }
+            Error::Busy { .. } => exit::BUSY,
+            Error::Timeout { .. } => exit::TEMPFAIL,
+            Error::Permission { .. } => exit::NO_PERMISSION,
+            Error::CannotCreate { .. } => exit::CANT_CREATE,
             Error::Unavailable { .. } => exit::UNAVAILABLE,
             Error::Database { sqlstate, .. } => database_exit_code(sqlstate.as_deref()),
-            Error::File { code, .. } => *code,
+            Error::File { kind, .. } => match kind {
+                FileProblem::Missing => exit::NO_INPUT,
+                FileProblem::BadContent => exit::DATA,
+                FileProblem::CannotCreate => exit::CANT_CREATE,
+                FileProblem::Io => exit::IO,
+                FileProblem::Locked => exit::TEMPFAIL,
+                FileProblem::Permission => exit::NO_PERMISSION,
+                FileProblem::Unexpected => exit::SOFTWARE,
+            },
             Error::Internal(_) => exit::SOFTWARE,
         }
     }
@@ -192,6 +271,10 @@ impl Error {
             Error::Input { .. } => "input",
             Error::Fit { .. } => "fit",
             Error::Folds(_) => "folds",
+            Error::Busy { .. } => "busy",
+            Error::Timeout { .. } => "timeout",
+            Error::Permission { .. } => "permission",
+            Error::CannotCreate { .. } => "cannot_create",
             Error::Unavailable { .. } => "unavailable",
             Error::Database { .. } => "database",
             Error::File { .. } => "file",

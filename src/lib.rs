@@ -2,12 +2,19 @@
 //! back to PostGIS or GeoPackage.
 //!
 //! - [`core`]: pure units, folds, models, metrics.
+//! - [`spec`]: the run specification; [`pipeline`]: the one pipeline that runs it.
+//! - [`results`]: one definition of every results table.
 //! - [`adapters`]: PostGIS and GeoPackage readers and result stores.
+//! - [`report`]: the summary, as text and JSON.
 //! - [`cli`]: one module per subcommand.
+//! - [`demo`]: the invented demo scenario and its writers.
 
 pub mod adapters;
 pub mod cli;
 pub mod core;
 pub mod demo;
 pub mod error;
+pub mod pipeline;
 pub mod report;
+pub mod results;
+pub mod spec;

@@ -33,7 +33,10 @@ fn main() {
             args.json,
             geofold::cli::demo::run(args).map(|(s, hint)| Output::Demo(s, hint)),
         ),
-        Command::Export(args) => (args.json, geofold::cli::export::run(args).map(Output::Json)),
+        Command::Export(args) => (
+            args.json,
+            geofold::cli::export::run(args).map(Output::Export),
+        ),
     };
     std::process::exit(finish(json, outcome));
 }
@@ -41,7 +44,7 @@ fn main() {
 enum Output {
     Summary(Summary),
     Demo(Summary, String),
-    Json(serde_json::Value),
+    Export(geofold::cli::export::ExportReport),
 }
 
 fn finish(json: bool, outcome: Result<Output, Error>) -> i32 {
@@ -54,7 +57,10 @@ fn finish(json: bool, outcome: Result<Output, Error>) -> i32 {
                 }
                 (Output::Summary(s), false) => s.to_text(),
                 (Output::Demo(s, hint), false) => format!("{}\n{hint}", s.to_text()),
-                (Output::Json(value), _) => serde_json::to_string_pretty(value).unwrap_or_default(),
+                (Output::Export(report), true) => {
+                    serde_json::to_string_pretty(report).unwrap_or_default()
+                }
+                (Output::Export(report), false) => report.to_text(),
             };
             // A closed pipe (geofold run … | head) is not a failure.
             let _ = writeln!(stdout, "{text}");

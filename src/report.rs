@@ -1,19 +1,41 @@
 //! What a run tells a person (text) and a program (`--json`).
 //!
 //! Both come from one [`Summary`], built from the core's outcomes and the
-//! store's report, so the text and the JSON never disagree.
+//! store's report, so the text and the JSON never disagree. Folds and
+//! repetitions are numbered from 1, as in the tables.
 
 use std::fmt::Write as _;
 
 use serde::Serialize;
 
-use crate::adapters::{RunRecord, SourceInfo, StoreReport};
-use crate::core::metrics::Scores;
-use crate::core::units::Dataset;
-use crate::core::validate::{FoldScore, FoldSpread, RunOutcome};
+use crate::adapters::{SourceInfo, StoreReport};
+use crate::core::metrics::{score_def, Better, Scores, Spread};
+use crate::core::units::{Dataset, Skipped};
+use crate::core::validate::RunOutcome;
+use crate::results::rows::RunRecord;
 
 /// Version of the `--json` document layout.
-pub const JSON_SCHEMA_VERSION: u32 = 1;
+pub const JSON_SCHEMA_VERSION: u32 = 2;
+
+/// How many skipped ids per reason the text summary lists (`--json` lists all).
+const SKIPPED_IDS_SHOWN: usize = 5;
+
+/// One fold as reported.
+#[derive(Debug, Clone, Serialize)]
+pub struct FoldSummary {
+    /// Repetition, from 1.
+    pub repetition: u32,
+    /// Fold, from 1.
+    pub fold: u32,
+    /// Training units.
+    pub n_train: usize,
+    /// Held-out units.
+    pub n_test: usize,
+    /// Units excluded from training.
+    pub n_excluded: usize,
+    /// Scores of the fold's held-out predictions.
+    pub scores: Scores,
+}
 
 /// One run as reported.
 #[derive(Debug, Clone, Serialize)]
@@ -26,35 +48,43 @@ pub struct RunSummary {
     pub primary_run_id: Option<String>,
     /// Scheme name.
     pub scheme: String,
-    /// Scheme and model parameters.
+    /// The scheme in plain words, with lengths in the CRS's unit.
+    pub scheme_described: String,
+    /// Scheme and model options.
     pub parameters: serde_json::Value,
     /// Seed.
     pub seed: u64,
     /// Repetitions.
     pub repeats: u32,
+    /// Facts about the split (e.g. occupied blocks and units per block).
+    pub split: serde_json::Map<String, serde_json::Value>,
+    /// Warnings about the split.
+    pub warnings: Vec<String>,
     /// Pooled over all held-out predictions.
     pub pooled: Scores,
-    /// Mean and SD of per-fold scores.
-    pub fold_spread: FoldSpread,
+    /// Mean and sample SD of per-fold scores.
+    #[serde(serialize_with = "spread_map")]
+    pub fold_spread: Vec<(&'static str, Spread)>,
+    /// Mean and sample SD over repetitions of each repetition's pooled scores.
+    #[serde(serialize_with = "optional_spread_map")]
+    pub repeat_spread: Option<Vec<(&'static str, Spread)>>,
+    /// The training-mean baseline on the same folds.
+    pub baseline: Scores,
     /// Per fold and repetition.
-    pub folds: Vec<FoldScore>,
+    pub folds: Vec<FoldSummary>,
 }
 
 /// How much more optimistic the random folds were than the spatial ones.
 #[derive(Debug, Clone, Serialize)]
 pub struct Comparison {
-    /// Pooled RMSE of the spatial (primary) run.
-    pub spatial_rmse: f64,
-    /// Pooled RMSE of the random run.
-    pub random_rmse: f64,
-    /// spatial_rmse - random_rmse.
-    pub rmse_gap: f64,
-    /// (spatial_rmse - random_rmse) / spatial_rmse: the share by which random CV understated the error.
-    pub rmse_understated_by: f64,
-    /// Pooled R² of the spatial run.
-    pub spatial_r2: Option<f64>,
-    /// Pooled R² of the random run.
-    pub random_r2: Option<f64>,
+    /// The score compared (the family's headline score).
+    pub score: &'static str,
+    /// Its pooled value in the spatial (primary) run.
+    pub spatial: f64,
+    /// Its pooled value in the random run.
+    pub random: f64,
+    /// (spatial − random) / spatial: the share by which random folds understate the error.
+    pub understated_by: f64,
 }
 
 /// Everything a run reports.
@@ -70,14 +100,18 @@ pub struct Summary {
     pub job: String,
     /// The source.
     pub source: SourceInfo,
+    /// The model in plain words.
+    pub model: String,
+    /// Exclusion buffer radius, when one was used.
+    pub exclusion_radius: Option<f64>,
     /// Rows read.
     pub units_read: u64,
     /// Units used.
     pub units_used: usize,
     /// Rows skipped, total.
     pub units_skipped: u64,
-    /// Rows skipped by reason.
-    pub skipped: crate::core::units::SkipCounts,
+    /// Rows skipped by reason, with every id.
+    pub skipped: Skipped,
     /// Fingerprint of the used rows.
     pub input_fingerprint: String,
     /// The runs, primary first.
@@ -89,45 +123,79 @@ pub struct Summary {
 }
 
 impl Summary {
-    /// Builds the summary of finished runs (`records[i]` goes with `outcomes[i]`).
+    /// Builds the summary of finished runs (`records[i]` goes with
+    /// `outcomes[i]` and `described[i]`).
+    #[allow(clippy::too_many_arguments)]
     pub fn new(
         source: &SourceInfo,
-        dataset: &Dataset,
+        data: &Dataset,
         records: &[RunRecord],
         outcomes: &[RunOutcome],
+        described: &[String],
+        model: &str,
+        exclusion_radius: Option<f64>,
         results: StoreReport,
     ) -> Summary {
         let runs: Vec<RunSummary> = records
             .iter()
             .zip(outcomes)
-            .map(|(record, outcome)| RunSummary {
-                run_id: record.run_id.to_string(),
-                role: if record.primary_run_id.is_some() {
-                    "comparison"
-                } else {
-                    "primary"
-                },
-                primary_run_id: record.primary_run_id.map(|id| id.to_string()),
-                scheme: record.scheme.clone(),
-                parameters: record.parameters.clone(),
-                seed: record.seed,
-                repeats: record.repeats,
-                pooled: outcome.pooled,
-                fold_spread: outcome.fold_spread,
-                folds: outcome.fold_scores.clone(),
+            .zip(described)
+            .map(|((record, outcome), described)| {
+                let first = outcome.repetitions.first();
+                RunSummary {
+                    run_id: record.run_id.to_string(),
+                    role: if record.primary_run_id.is_some() {
+                        "comparison"
+                    } else {
+                        "primary"
+                    },
+                    primary_run_id: record.primary_run_id.map(|id| id.to_string()),
+                    scheme: record.scheme.clone(),
+                    scheme_described: described.clone(),
+                    parameters: record.parameters.clone(),
+                    seed: record.seed,
+                    repeats: record.repeats,
+                    split: first.map(|r| r.folds.facts.clone()).unwrap_or_default(),
+                    warnings: first.map(|r| r.folds.warnings.clone()).unwrap_or_default(),
+                    pooled: outcome.pooled.clone(),
+                    fold_spread: outcome.fold_spread.clone(),
+                    repeat_spread: outcome.repeat_spread.clone(),
+                    baseline: outcome.baseline.clone(),
+                    folds: outcome
+                        .repetitions
+                        .iter()
+                        .enumerate()
+                        .flat_map(|(repetition, rep)| {
+                            rep.fold_results
+                                .iter()
+                                .enumerate()
+                                .map(move |(fold, f)| FoldSummary {
+                                    repetition: repetition as u32 + 1,
+                                    fold: fold as u32 + 1,
+                                    n_train: f.n_train,
+                                    n_test: f.n_test,
+                                    n_excluded: f.n_excluded,
+                                    scores: f.scores.clone(),
+                                })
+                        })
+                        .collect(),
+                }
             })
             .collect();
-        let comparison = match runs.as_slice() {
-            [primary, random] if primary.scheme != "random" && random.scheme == "random" => {
-                Some(Comparison {
-                    spatial_rmse: primary.pooled.rmse,
-                    random_rmse: random.pooled.rmse,
-                    rmse_gap: primary.pooled.rmse - random.pooled.rmse,
-                    rmse_understated_by: (primary.pooled.rmse - random.pooled.rmse)
-                        / primary.pooled.rmse,
-                    spatial_r2: primary.pooled.r2,
-                    random_r2: random.pooled.r2,
-                })
+        let comparison = match (runs.as_slice(), outcomes.first()) {
+            ([primary, random], Some(outcome))
+                if random.scheme == "random" && primary.scheme != "random" =>
+            {
+                let score = outcome.family.headline();
+                match (primary.pooled.get(score), random.pooled.get(score)) {
+                    (Some(spatial), Some(random)) => Some(Comparison {
+                        score,
+                        spatial,
+                        random,
+                        understated_by: (spatial - random) / spatial,
+                    }),
+                    _ => None,
+                }
             }
             _ => None,
         };
@@ -137,11 +205,13 @@ impl Summary {
             exit_code: 0,
             job: records.first().map(|r| r.job.clone()).unwrap_or_default(),
             source: source.clone(),
-            units_read: dataset.rows_read,
-            units_used: dataset.len(),
-            units_skipped: dataset.skipped.total(),
-            skipped: dataset.skipped.clone(),
-            input_fingerprint: dataset.fingerprint(),
+            model: model.to_string(),
+            exclusion_radius,
+            units_read: data.rows_read,
+            units_used: data.len(),
+            units_skipped: data.skipped.total(),
+            skipped: data.skipped.clone(),
+            input_fingerprint: data.fingerprint(),
             runs,
             comparison,
             results,
@@ -151,11 +221,26 @@ impl Summary {
     /// The human summary.
     pub fn to_text(&self) -> String {
         let mut out = String::new();
+        let source = &self.source;
         let _ = writeln!(
             out,
             "job {}: {} units used of {} rows read from {} ({})",
-            self.job, self.units_used, self.units_read, self.source.table, self.source.store
+            self.job, self.units_used, self.units_read, source.table, source.store
         );
+        let _ = writeln!(
+            out,
+            "validated: {} predicted from {} with {}",
+            source.target_column,
+            source.feature_columns.join(", "),
+            self.model
+        );
+        if let Some(radius) = self.exclusion_radius {
+            let _ = writeln!(
+                out,
+                "exclusion buffer: training units within {} of a test unit are left out of that fold's training",
+                source.length(radius)
+            );
+        }
         if self.units_skipped > 0 {
             let _ = writeln!(
                 out,
@@ -163,87 +248,217 @@ impl Summary {
                 self.units_skipped,
                 self.skipped.describe()
             );
+            for (reason, ids) in self.skipped.ids() {
+                let shown: Vec<String> = ids
+                    .iter()
+                    .take(SKIPPED_IDS_SHOWN)
+                    .map(|id| id.to_string())
+                    .collect();
+                let more = if ids.len() > shown.len() {
+                    format!(" and {} more (all in --json)", ids.len() - shown.len())
+                } else {
+                    String::new()
+                };
+                let _ = writeln!(out, "  {reason}: ids {}{more}", shown.join(", "));
+            }
         }
         for run in &self.runs {
-            let _ = writeln!(out);
-            let _ = writeln!(
-                out,
-                "{} run {} ({}), seed {}, {} repetition(s)",
-                run.scheme, run.run_id, run.role, run.seed, run.repeats
-            );
-            let _ = writeln!(out, "  {}", describe_parameters(&run.parameters));
-            let shown: Vec<&FoldScore> = run
-                .folds
-                .iter()
-                .filter(|f| run.repeats == 1 || f.repetition == 0)
-                .collect();
-            if run.repeats > 1 {
-                let _ = writeln!(out, "  folds of repetition 1:");
-            }
-            let _ = writeln!(
-                out,
-                "  {:>4} {:>9} {:>8} {:>10} {:>10} {:>10} {:>7}",
-                "fold", "n_train", "n_test", "RMSE", "MAE", "bias", "R²"
-            );
-            for fold in shown {
-                let _ = writeln!(
-                    out,
-                    "  {:>4} {:>9} {:>8} {:>10} {:>10} {:>10} {:>7}",
-                    fold.fold + 1,
-                    fold.n_train,
-                    fold.n_test,
-                    number(fold.scores.rmse),
-                    number(fold.scores.mae),
-                    number(fold.scores.bias),
-                    fold.scores
-                        .r2
-                        .map(|r| format!("{r:.3}"))
-                        .unwrap_or_else(|| "-".into())
-                );
-            }
-            let p = &run.pooled;
-            let _ = writeln!(
-                out,
-                "  pooled over {} held-out predictions: RMSE {} MAE {} bias {} R² {}",
-                p.n,
-                number(p.rmse),
-                number(p.mae),
-                number(p.bias),
-                p.r2.map(|r| format!("{r:.3}"))
-                    .unwrap_or_else(|| "-".into())
-            );
-            let s = &run.fold_spread;
-            let _ = writeln!(
-                out,
-                "  per-fold mean ± SD: RMSE {} ± {}  R² {} ± {}",
-                number(s.rmse.mean),
-                number(s.rmse.sd),
-                number(s.r2.mean),
-                number(s.r2.sd)
-            );
+            self.run_text(&mut out, run);
         }
         if let Some(c) = &self.comparison {
             let _ = writeln!(out);
             let _ = writeln!(
                 out,
-                "spatial vs random folds on the same {} units: RMSE {} vs {}; random folds understate the error for unseen places by {:.1}% (R² {} vs {})",
+                "spatial vs random folds on the same {} units: {} {} vs {}; random folds understate the error for unseen places by {:.1}%",
                 self.units_used,
-                number(c.spatial_rmse),
-                number(c.random_rmse),
-                100.0 * c.rmse_understated_by,
-                c.spatial_r2.map(|r| format!("{r:.3}")).unwrap_or_else(|| "-".into()),
-                c.random_r2.map(|r| format!("{r:.3}")).unwrap_or_else(|| "-".into()),
+                c.score.to_uppercase(),
+                number(c.spatial),
+                number(c.random),
+                100.0 * c.understated_by,
             );
         }
         let _ = writeln!(out);
         let _ = writeln!(out, "results: {}", self.results.location);
-        let _ = writeln!(out, "  per-unit errors layer: {}", self.results.layer);
-        let _ = writeln!(out, "  blocks layer: {}", self.results.blocks_layer);
+        for layer in &self.results.layers {
+            let _ = writeln!(
+                out,
+                "  layer {} (key {}): {}; it now shows run {}",
+                layer.name,
+                layer.key,
+                layer.shows,
+                self.runs.first().map(|r| r.run_id.as_str()).unwrap_or("")
+            );
+        }
         let _ = writeln!(
             out,
-            "scores describe predictive skill for the validated setting, not causes."
+            "scores describe predictive skill for places like the held-out ones, not causes; they do not replace \
+             domain judgment, local rules or licensed practice."
         );
         out
+    }
+
+    fn run_text(&self, out: &mut String, run: &RunSummary) {
+        let _ = writeln!(out);
+        let _ = writeln!(
+            out,
+            "{} run {} ({}), seed {}, {} repetition(s)",
+            run.scheme, run.run_id, run.role, run.seed, run.repeats
+        );
+        let _ = writeln!(out, "  {}", run.scheme_described);
+        if let (Some(blocks), Some(per)) = (
+            run.split.get("occupied_blocks"),
+            run.split.get("units_per_block"),
+        ) {
+            let _ = writeln!(
+                out,
+                "  {blocks} occupied blocks; units per block: median {}, range {}–{}",
+                per["median"], per["min"], per["max"]
+            );
+        }
+        for warning in &run.warnings {
+            let _ = writeln!(out, "  warning: {warning}");
+        }
+        let names: Vec<&'static str> = run.pooled.values.iter().map(|(name, _)| *name).collect();
+        let shown: Vec<&FoldSummary> = run
+            .folds
+            .iter()
+            .filter(|f| f.repetition == 1)
+            .take(30)
+            .collect();
+        if run.repeats > 1 || run.folds.len() > shown.len() {
+            let _ = writeln!(
+                out,
+                "  folds of repetition 1{}:",
+                if shown.len() < run.folds.iter().filter(|f| f.repetition == 1).count() {
+                    " (first 30)"
+                } else {
+                    ""
+                }
+            );
+        }
+        let mut header = format!(
+            "  {:>5} {:>9} {:>8} {:>9}",
+            "fold", "n_train", "n_test", "excluded"
+        );
+        for name in &names {
+            let _ = write!(header, " {:>10}", label(name));
+        }
+        let _ = writeln!(out, "{header}");
+        for fold in shown {
+            let mut line = format!(
+                "  {:>5} {:>9} {:>8} {:>9}",
+                fold.fold, fold.n_train, fold.n_test, fold.n_excluded
+            );
+            for name in &names {
+                let _ = write!(
+                    line,
+                    " {:>10}",
+                    fold.scores
+                        .get(name)
+                        .map(number)
+                        .unwrap_or_else(|| "-".into())
+                );
+            }
+            let _ = writeln!(out, "{line}");
+        }
+        let pooled: Vec<String> = names
+            .iter()
+            .map(|name| {
+                format!(
+                    "{} {}",
+                    label(name),
+                    run.pooled
+                        .get(name)
+                        .map(number)
+                        .unwrap_or_else(|| "-".into())
+                )
+            })
+            .collect();
+        let _ = writeln!(
+            out,
+            "  pooled over {} held-out predictions: {}",
+            run.pooled.n,
+            pooled.join("  ")
+        );
+        let baseline: Vec<String> = names
+            .iter()
+            .filter(|name| score_def(name).is_some_and(|d| d.better != Better::Zero))
+            .map(|name| {
+                format!(
+                    "{} {}",
+                    label(name),
+                    run.baseline
+                        .get(name)
+                        .map(number)
+                        .unwrap_or_else(|| "-".into())
+                )
+            })
+            .collect();
+        let _ = writeln!(
+            out,
+            "  training-mean baseline on the same folds: {}",
+            baseline.join("  ")
+        );
+        let spread: Vec<String> = run
+            .fold_spread
+            .iter()
+            .filter(|(name, _)| *name != "bias")
+            .map(|(name, s)| format!("{} {} ± {}", label(name), number(s.mean), number(s.sd)))
+            .collect();
+        let _ = writeln!(out, "  per-fold mean ± SD: {}", spread.join("  "));
+        if let Some(repeats) = &run.repeat_spread {
+            let spread: Vec<String> = repeats
+                .iter()
+                .filter(|(name, _)| *name != "bias")
+                .map(|(name, s)| format!("{} {} ± {}", label(name), number(s.mean), number(s.sd)))
+                .collect();
+            let _ = writeln!(
+                out,
+                "  over the {} repetitions (mean ± SD): {}",
+                run.repeats,
+                spread.join("  ")
+            );
+        }
+        if let Some(r2) = run.pooled.get("r2") {
+            if r2 < 0.0 {
+                let _ = writeln!(
+                    out,
+                    "  note: R² is negative: the held-out predictions are worse than predicting the mean of the held-out values"
+                );
+            }
+        }
+    }
+}
+
+/// Spreads as one object: `{"rmse": {"mean": …, "sd": …}, …}`.
+fn spread_map<S: serde::Serializer>(
+    spreads: &[(&'static str, Spread)],
+    serializer: S,
+) -> Result<S::Ok, S::Error> {
+    use serde::ser::SerializeMap;
+    let mut map = serializer.serialize_map(Some(spreads.len()))?;
+    for (name, spread) in spreads {
+        map.serialize_entry(name, spread)?;
+    }
+    map.end()
+}
+
+fn optional_spread_map<S: serde::Serializer>(
+    spreads: &Option<Vec<(&'static str, Spread)>>,
+    serializer: S,
+) -> Result<S::Ok, S::Error> {
+    match spreads {
+        Some(spreads) => spread_map(spreads, serializer),
+        None => serializer.serialize_none(),
+    }
+}
+
+/// A score's name as printed.
+fn label(name: &str) -> String {
+    match name {
+        "r2" => "R²".into(),
+        "bias" => "bias".into(),
+        other => other.to_uppercase(),
     }
 }
 
@@ -257,21 +472,4 @@ fn number(value: f64) -> String {
     } else {
         format!("{value:.4}")
     }
-}
-
-fn describe_parameters(parameters: &serde_json::Value) -> String {
-    let scheme = &parameters["scheme"];
-    let model = &parameters["model"];
-    let scheme_text = match scheme["scheme"].as_str() {
-        Some("grid") => format!(
-            "grid blocks of {} CRS units from origin ({}, {}), {} folds",
-            scheme["block_size"], scheme["origin"][0], scheme["origin"][1], scheme["folds"]
-        ),
-        Some(other) => format!("{other} folds: {}", scheme["folds"]),
-        None => String::new(),
-    };
-    format!(
-        "{scheme_text}; model {}",
-        model["model"].as_str().unwrap_or("?")
-    )
 }

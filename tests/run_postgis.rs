@@ -249,7 +249,7 @@ fn run_id(document: &serde_json::Value, index: usize) -> String {
 }
 
 /// Rows of run `{run}` in each results table:
-/// `fold_members|predictions|unit_errors|fold_scores|run_scores|blocks`.
+/// `fold_members|predictions|unit_errors|fold_scores|run_scores|fold_regions`.
 fn result_rows(case: &Case, run: &str) -> String {
     let tables = [
         "fold_members",
@@ -257,7 +257,7 @@ fn result_rows(case: &Case, run: &str) -> String {
         "unit_errors",
         "fold_scores",
         "run_scores",
-        "blocks",
+        "fold_regions",
     ];
     let counts: Vec<String> = tables
         .iter()
@@ -333,8 +333,8 @@ fn check_units_sit_in_their_blocks(case: &Case, table: &str, run: &str, geom: &s
         .unwrap();
     let sql = format!(
         "SELECT count(*) = {expected} AND bool_and(b.fold = m.fold)
-         FROM {{s}}.{table} s JOIN {{r}}.fold_members m ON s.id = m.unit_id
-         JOIN {{r}}.blocks b ON b.run_id = m.run_id AND b.repetition = m.repetition
+         FROM {{s}}.{table} s JOIN {{r}}.fold_members m ON s.id::text = m.unit_id
+         JOIN {{r}}.fold_regions b ON b.run_id = m.run_id AND b.repetition = m.repetition
               AND ST_Contains(b.geom, ST_Centroid({geom}))
          WHERE m.run_id = '{run}' AND {centroid_inside}"
     );
@@ -386,11 +386,12 @@ fn end_to_end(label: &str, id: IdType) {
             "{1,2,3}"
         );
         check_scores(&case, run, 36);
-        // Result rows join to the source by its own id, no cast on the source side.
+        // Result rows hold the source id as text: they join to the source by its
+        // own id, cast on the results side only.
         for table in ["fold_members", "predictions", "unit_errors"] {
             assert_eq!(
                 case.query(&format!(
-                    "SELECT count(*) FROM {{s}}.units s JOIN {{r}}.{table} t ON s.id = t.unit_id
+                    "SELECT count(*) FROM {{s}}.units s JOIN {{r}}.{table} t ON s.id::text = t.unit_id
                      WHERE t.run_id = '{run}'"
                 )),
                 "36",
@@ -400,7 +401,7 @@ fn end_to_end(label: &str, id: IdType) {
         case.check(
             "predictions carry the source's target and the fold of fold_members",
             &format!(
-                "SELECT count(*) = 36 FROM {{s}}.units s JOIN {{r}}.predictions p ON s.id = p.unit_id
+                "SELECT count(*) = 36 FROM {{s}}.units s JOIN {{r}}.predictions p ON s.id::text = p.unit_id
                  JOIN {{r}}.fold_members m ON m.unit_id = p.unit_id AND m.run_id = p.run_id
                      AND m.repetition = p.repetition
                  WHERE p.run_id = '{run}' AND p.observed = s.target AND p.fold = m.fold"
@@ -409,7 +410,7 @@ fn end_to_end(label: &str, id: IdType) {
         case.check(
             "with one repetition, unit_errors repeat the prediction",
             &format!(
-                "SELECT count(*) = 36 AND count(DISTINCT e.unit_key) = 36
+                "SELECT count(*) = 36 AND count(DISTINCT e.unit_id) = 36
                  FROM {{r}}.unit_errors e JOIN {{r}}.predictions p USING (run_id, unit_id)
                  WHERE run_id = '{run}' AND e.predicted = p.predicted AND e.residual = p.residual
                    AND e.abs_error = abs(p.residual) AND e.rmse = abs(p.residual) AND e.repetitions = 1"
@@ -420,35 +421,40 @@ fn end_to_end(label: &str, id: IdType) {
     // blocks: 200 m squares in the distance CRS with a GiST index.
     case.check(
         "blocks are 200 m squares in SRID 32631 holding all units",
-        "SELECT bool_and(ST_SRID(geom) = 32631 AND abs(ST_Area(geom) - 40000) < 1e-6)
-                AND sum(n_units) = 36 FROM {r}.blocks WHERE run_id = '{p}'",
+        "SELECT bool_and(ST_SRID(geom) = 32631 AND srid = 32631 AND kind = 'block'
+                    AND abs(ST_Area(geom) - 40000) < 1e-6)
+                AND sum(units) = 36 FROM {r}.fold_regions WHERE run_id = '{p}'",
     );
     assert!(check_units_sit_in_their_blocks(&case, "units", &primary, "s.geom") >= 34);
     case.check(
-        "blocks has a GiST index on geom",
-        "SELECT count(*) = 1 FROM pg_indexes WHERE schemaname = '{r}' AND tablename = 'blocks'
+        "fold_regions has a GiST index on geom",
+        "SELECT count(*) = 1 FROM pg_indexes WHERE schemaname = '{r}' AND tablename = 'fold_regions'
          AND indexdef ILIKE '%USING gist (geom)%'",
     );
 
-    // The job view: named in --json, a typed geometry layer for QGIS, only the primary run.
-    assert_eq!(document["job"], "units");
+    // The job view: named in --json, a typed geometry layer for QGIS, only the
+    // primary run; the default job names the schema and the table.
+    let job = case.fill("{s}_units");
+    case.bind("job", &job);
+    assert_eq!(document["job"], job.as_str());
     assert_eq!(
-        document["results"]["layer"],
-        case.fill("{r}.units (key fid)").as_str()
+        document["results"]["layers"][0]["name"],
+        case.fill("{r}.{job}").as_str()
     );
-    common::check_qgis_layer(&case.results, "units", "fid", "MULTIPOLYGON", 32631, 36);
+    common::check_qgis_layer(&case.results, &job, "fid", "MULTIPOLYGON", 32631, 36);
     common::check_qgis_layer(
         &case.results,
-        "units_blocks",
-        "block_key",
-        "POLYGON",
+        &format!("{job}_regions"),
+        "region_id",
+        "MULTIPOLYGON",
         32631,
         9,
     );
     case.check(
         "the job view shows the primary run only and joins to the source",
-        "SELECT count(*) = 36 AND bool_and(v.run_id = '{p}')
-         FROM {r}.units v JOIN {s}.units s ON s.id = v.unit_id",
+        "SELECT count(*) = 36 AND bool_and(v.run_id = '{p}' AND v.fold = m.fold)
+         FROM {r}.{job} v JOIN {s}.units s ON s.id = v.unit_id
+         JOIN {r}.fold_members m ON m.run_id = v.run_id AND m.unit_id = v.unit_id::text AND m.repetition = 1",
     );
 }
 
@@ -582,18 +588,18 @@ fn a_ring_is_placed_in_a_block_it_covers_not_in_its_hole() {
     );
     case.bind("p", &run_id(&document, 0));
     assert_eq!(
-        case.query("SELECT count(*) FROM {r}.blocks WHERE run_id = '{p}'"),
+        case.query("SELECT count(*) FROM {r}.fold_regions WHERE run_id = '{p}'"),
         "17"
     );
     case.check(
         "no block at the ring's centroid",
-        "SELECT count(*) = 0 FROM {r}.blocks b, {s}.units s
+        "SELECT count(*) = 0 FROM {r}.fold_regions b, {s}.units s
          WHERE b.run_id = '{p}' AND s.id = 17 AND ST_Intersects(b.geom, ST_Centroid(s.geom))",
     );
     case.check(
         "exactly one block overlaps the ring, holds it alone, and has its fold",
-        "SELECT count(*) = 1 AND bool_and(b.n_units = 1 AND b.fold = m.fold)
-         FROM {r}.blocks b, {s}.units s JOIN {r}.fold_members m ON s.id = m.unit_id
+        "SELECT count(*) = 1 AND bool_and(b.units = 1 AND b.fold = m.fold)
+         FROM {r}.fold_regions b, {s}.units s JOIN {r}.fold_members m ON s.id::text = m.unit_id
          WHERE b.run_id = '{p}' AND m.run_id = '{p}' AND s.id = 17
            AND ST_Area(ST_Intersection(b.geom, s.geom)) > 0",
     );
@@ -620,7 +626,7 @@ fn held_out_predictions_match_a_numpy_refit_on_the_folds_read_back() {
         let run = run_id(&document, index);
         let input = case.query(&format!(
             "SELECT m.repetition, m.fold, s.id, s.target, s.a, s.b, s.c
-             FROM {{s}}.units s JOIN {{r}}.fold_members m ON s.id = m.unit_id
+             FROM {{s}}.units s JOIN {{r}}.fold_members m ON s.id::text = m.unit_id
              WHERE m.run_id = '{run}' ORDER BY m.repetition, s.id"
         ));
         let reference = numpy_refit(&input);
@@ -769,10 +775,19 @@ fn bad_rows_are_skipped_and_counted_by_reason() {
     // By construction: 101 and 102 miss the target, 103 and 107 feature a, 104 feature b,
     // 105 has no geometry, 106 an empty one.
     let expected = serde_json::json!({
-        "no_geometry": 1, "empty_geometry": 1, "missing_target": 2,
-        "missing_feature": {"a": 2, "b": 1}
+        "no geometry": 1, "empty geometry": 1, "missing target": 2,
+        "missing feature a": 2, "missing feature b": 1
     });
-    assert_eq!(document["skipped"], expected);
+    assert_eq!(
+        document["skipped"],
+        serde_json::json!([
+            {"reason": "no geometry", "count": 1, "ids": ["105"]},
+            {"reason": "empty geometry", "count": 1, "ids": ["106"]},
+            {"reason": "missing target", "count": 2, "ids": ["101", "102"]},
+            {"reason": "missing feature a", "count": 2, "ids": ["103", "107"]},
+            {"reason": "missing feature b", "count": 1, "ids": ["104"]},
+        ])
+    );
     assert_eq!(document["units_skipped"], 7);
     assert_eq!(document["units_read"], 43);
     assert_eq!(document["units_used"], 36);
@@ -783,7 +798,7 @@ fn bad_rows_are_skipped_and_counted_by_reason() {
         "43|36|t"
     );
     assert_eq!(
-        case.query("SELECT count(*) FILTER (WHERE unit_id > 100), count(*) FROM {r}.fold_members WHERE run_id = '{p}'"),
+        case.query("SELECT count(*) FILTER (WHERE unit_id::int > 100), count(*) FROM {r}.fold_members WHERE run_id = '{p}'"),
         "0|36"
     );
 
@@ -839,6 +854,11 @@ fn missing_table_schema_or_column_exit_66() {
     let stderr = with_table("{s}.units", "a,rainfall");
     assert!(
         stderr.contains(&case.fill("column rainfall in table {s}.units")),
+        "{stderr}"
+    );
+    let stderr = with_table("{s}.units", "a,targt");
+    assert!(
+        stderr.contains(&case.fill("column targt (did you mean target?) in table {s}.units")),
         "{stderr}"
     );
 }
@@ -963,7 +983,7 @@ fn geographic_srid_needs_a_distance_srid_and_postgis_transforms() {
     case.check(
         "blocks are 500 m squares in EPSG:32631",
         "SELECT count(*) > 3 AND bool_and(ST_SRID(geom) = 32631 AND abs(ST_Area(geom) - 250000) < 1e-6)
-         FROM {r}.blocks WHERE run_id = '{p}'",
+         FROM {r}.fold_regions WHERE run_id = '{p}'",
     );
     // The folds follow the blocks of the centroids PostGIS's ST_Transform gives.
     assert_eq!(
@@ -971,7 +991,14 @@ fn geographic_srid_needs_a_distance_srid_and_postgis_transforms() {
         36
     );
     // The job view shows the source geometry in its own SRID.
-    common::check_qgis_layer(&case.results, "units", "fid", "POLYGON", 4326, 36);
+    common::check_qgis_layer(
+        &case.results,
+        &case.fill("{s}_units"),
+        "fid",
+        "POLYGON",
+        4326,
+        36,
+    );
 }
 
 #[test]
@@ -1009,8 +1036,8 @@ fn a_run_failing_while_writing_leaves_no_rows_and_the_view_keeps_the_last_succes
     ]);
     let first = run_ok(&case, &arguments);
     case.bind("first", &run_id(&first, 0));
-    // unit_errors is loaded after predictions, so the failure comes in the
-    // middle of writing. A statement-level trigger fires once the COPY has all
+    // fold_regions is loaded after held_out and the score tables, so the
+    // failure comes in the middle of writing. A statement-level trigger fires once the COPY has all
     // its rows (PostgreSQL "COPY" docs: AFTER STATEMENT triggers fire at its
     // end), so the server's message reliably reaches geofold; a row-level one
     // can stop the COPY while rows are still being sent, and the client
@@ -1018,7 +1045,7 @@ fn a_run_failing_while_writing_leaves_no_rows_and_the_view_keeps_the_last_succes
     case.script(
         "CREATE FUNCTION {r}.refuse() RETURNS trigger LANGUAGE plpgsql
              AS $$ BEGIN RAISE EXCEPTION 'refused by the test trigger'; END $$;
-         CREATE TRIGGER refuse AFTER INSERT ON {r}.unit_errors
+         CREATE TRIGGER refuse AFTER INSERT ON {r}.fold_regions
              FOR EACH STATEMENT EXECUTE FUNCTION {r}.refuse();",
     );
     let output = case.geofold_run(&arguments);
@@ -1042,8 +1069,8 @@ fn a_run_failing_while_writing_leaves_no_rows_and_the_view_keeps_the_last_succes
     );
     case.check(
         "the job views still show the first run",
-        "SELECT (SELECT count(*) = 36 AND bool_and(run_id = '{first}') FROM {r}.units)
-            AND (SELECT count(*) = 9 AND bool_and(run_id = '{first}') FROM {r}.units_blocks)",
+        "SELECT (SELECT count(*) = 36 AND bool_and(run_id = '{first}') FROM {r}.{s}_units)
+            AND (SELECT count(*) = 9 AND bool_and(run_id = '{first}') FROM {r}.{s}_units_regions)",
     );
 }
 

@@ -1,27 +1,34 @@
 //! Adapters: where units come from and where results go.
 //!
 //! A [`Source`] feeds rows into the core's [`UnitCollector`]; a [`ResultStore`]
-//! writes a finished run. PostGIS and GeoPackage each implement both, so the
-//! pipeline in `cli::run` is written once.
+//! records runs, writes a finished run's rows (defined once in
+//! [`crate::results`]) and reads runs back. PostGIS and GeoPackage each
+//! implement both, so the pipeline is written once and knows no store.
 //!
 //! - [`postgis`]: tokio-postgres, binary COPY both ways, one transaction per write.
 //! - [`gpkg`]: rusqlite with bundled SQLite, GeoPackageBinary geometries.
+//! - [`sql`]: SQL identifiers and literals, shared by both.
+//! - [`wkb`]: WKB for the region polygons geofold makes.
 
 pub mod gpkg;
 pub mod postgis;
+pub mod sql;
 pub mod wkb;
+
+use std::path::PathBuf;
+use std::time::Duration;
 
 use serde::Serialize;
 use uuid::Uuid;
 
 use crate::core::units::{Dataset, IdKind, UnitCollector};
-use crate::core::validate::{Plan, RunOutcome};
 use crate::error::Error;
+use crate::results::rows::{FinishedRun, RunRecord};
 
 /// The columns the user asked for.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, serde::Deserialize)]
 pub struct ColumnSpec {
-    /// Id column; None lets the adapter pick (the GeoPackage primary key).
+    /// Id column; None lets the adapter pick (the primary key).
     pub id: Option<String>,
     /// Geometry column; None lets the adapter pick (the only geometry column).
     pub geom: Option<String>,
@@ -31,6 +38,18 @@ pub struct ColumnSpec {
     pub features: Vec<String>,
 }
 
+/// What kind of coordinate reference system a layer has.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum CrsKind {
+    /// Projected (planar) coordinates in a length unit.
+    Projected,
+    /// Longitude/latitude in degrees.
+    Geographic,
+    /// No CRS is defined (SRID 0 in PostGIS; SRS id 0 or -1 in a GeoPackage).
+    Undefined,
+}
+
 /// What an adapter found out about the source before reading it.
 #[derive(Debug, Clone, Serialize)]
 pub struct SourceInfo {
@@ -38,30 +57,60 @@ pub struct SourceInfo {
     pub store: &'static str,
     /// The table as shown to users: `schema.table`, or `file.gpkg:layer`.
     pub table: String,
-    /// For PostGIS, the quoted `"schema"."table"`, used to build the job's view.
+    /// PostGIS: the quoted `"schema"."table"`; GeoPackage: the layer name.
     pub qualified_table: String,
+    /// The GeoPackage file of a GeoPackage source.
+    pub file: Option<PathBuf>,
     /// Id column actually used.
     pub id_column: String,
     /// Geometry column actually used.
     pub geom_column: String,
-    /// Target column.
+    /// Target column actually used.
     pub target_column: String,
-    /// Feature columns.
+    /// Feature columns actually used.
     pub feature_columns: Vec<String>,
     /// Kind of the id column.
     pub id_kind: IdKind,
+    /// The id column's own SQL type (`integer`, `bigint`, `text`, …), so job
+    /// layers join without casting the source side.
+    pub id_type: String,
     /// SRID of the geometry column in the source.
     pub source_srid: i32,
     /// SRID of the coordinates the core sees (the distance CRS).
     pub srid: i32,
-    /// True when `source_srid` is a longitude/latitude CRS (units are degrees).
-    pub geographic: bool,
+    /// Kind of the distance CRS.
+    pub crs: CrsKind,
+    /// Singular name of the distance CRS's length unit (`metre`, `foot`…) when known.
+    pub length_unit: Option<String>,
     /// The geometry column's declared type (`MULTIPOLYGON`, `POINT`, `GEOMETRY`…), upper case.
     pub declared_geometry_type: String,
     /// WKT of the distance CRS when known (GeoPackage SRS rows need it).
     pub srs_wkt: Option<String>,
     /// Name of the distance CRS when known.
     pub srs_name: Option<String>,
+}
+
+impl SourceInfo {
+    /// A length in the distance CRS, in words: `4 km`, `800 m`, `2.5 CRS units`.
+    pub fn length(&self, value: f64) -> String {
+        describe_length(value, self.length_unit.as_deref())
+    }
+}
+
+/// A length in a CRS unit, in words (metres become m or km).
+pub fn describe_length(value: f64, unit: Option<&str>) -> String {
+    let plain = |v: f64| {
+        let text = format!("{v:.3}");
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    };
+    let metres =
+        unit.is_some_and(|u| ["metre", "meter", "m"].contains(&u.to_ascii_lowercase().as_str()));
+    match unit {
+        Some(_) if metres && value.abs() >= 1000.0 => format!("{} km", plain(value / 1000.0)),
+        Some(_) if metres => format!("{} m", plain(value)),
+        Some(other) => format!("{} × {other}", plain(value)),
+        None => format!("{} CRS units", plain(value)),
+    }
 }
 
 /// A source of units.
@@ -75,39 +124,15 @@ pub trait Source {
     fn read(&mut self, collector: &mut UnitCollector) -> Result<(), Error>;
 }
 
-/// The record of one run, as stored in `runs`.
+/// A map layer a store made for a job.
 #[derive(Debug, Clone, Serialize)]
-pub struct RunRecord {
-    /// The run's id.
-    pub run_id: Uuid,
-    /// The job label.
-    pub job: String,
-    /// For a comparison run (`--also-random`), the primary run it belongs to.
-    pub primary_run_id: Option<Uuid>,
-    /// Start, Unix microseconds.
-    pub started_at_micros: i64,
-    /// Scheme name.
-    pub scheme: String,
-    /// Scheme and model parameters.
-    pub parameters: serde_json::Value,
-    /// Seed.
-    pub seed: u64,
-    /// Repetitions.
-    pub repeats: u32,
-    /// Folds.
-    pub folds: u32,
-    /// geofold version.
-    pub tool_version: String,
-}
-
-/// A run ready to be written.
-pub struct FinishedRun<'a> {
-    /// Its record.
-    pub record: &'a RunRecord,
-    /// Its plan.
-    pub plan: &'a Plan,
-    /// Its outcome.
-    pub outcome: &'a RunOutcome,
+pub struct Layer {
+    /// How to find it: `schema.view` or `file.gpkg:layer`.
+    pub name: String,
+    /// Its key column.
+    pub key: String,
+    /// What it shows.
+    pub shows: String,
 }
 
 /// Where a store put things, for the summary.
@@ -117,54 +142,138 @@ pub struct StoreReport {
     pub store: &'static str,
     /// The schema (PostGIS) or file (GeoPackage).
     pub location: String,
-    /// The per-unit layer to open in a GIS (view or feature table), with its key column.
-    pub layer: String,
-    /// The block layer.
-    pub blocks_layer: String,
+    /// The job's map layers, now showing this run.
+    pub layers: Vec<Layer>,
     /// Rows written per table.
     pub rows_written: Vec<(String, u64)>,
 }
 
+/// A run as read back from a store.
+#[derive(Debug, Clone, Serialize)]
+pub struct StoredRun {
+    /// Its id.
+    pub run_id: Uuid,
+    /// Its job.
+    pub job: String,
+    /// The primary run of a comparison run.
+    pub primary_run_id: Option<Uuid>,
+    /// running, succeeded or failed.
+    pub status: String,
+    /// ISO 8601 UTC.
+    pub started_at: String,
+    /// ISO 8601 UTC, when finished.
+    pub finished_at: Option<String>,
+    /// Scheme.
+    pub scheme: String,
+    /// Model.
+    pub model: String,
+    /// Units used.
+    pub units_used: Option<i64>,
+    /// Input fingerprint.
+    pub input_fingerprint: Option<String>,
+    /// Scheme and model options.
+    pub parameters: serde_json::Value,
+    /// Why it failed.
+    pub error_message: Option<String>,
+    /// Whether it is the job's pinned baseline.
+    pub pinned: bool,
+    /// `(score, statistic, value)` of its run scores.
+    pub scores: Vec<(String, String, Option<f64>)>,
+}
+
 /// A place where runs are recorded.
 pub trait ResultStore {
-    /// Creates or upgrades the results tables and checks they can hold this source's results.
+    /// Where it is, for messages: `schema geofold in user@host/db`, or a path.
+    fn location(&self) -> String;
+    /// Enters the job's exclusive section: one run of a job at a time. Held
+    /// until the store is dropped. Waits up to `wait` for another run of the
+    /// job to finish.
     ///
     /// # Errors
-    /// A results store made for another id type or CRS; no permission.
-    fn prepare(&mut self, info: &SourceInfo) -> Result<(), Error>;
+    /// [`Error::Busy`] naming who holds the job.
+    fn lock_job(&mut self, job: &str, wait: Duration) -> Result<(), Error>;
+    /// Creates or upgrades the results tables, and marks failed every run
+    /// left `running` by a process that is gone.
+    ///
+    /// # Errors
+    /// No permission (the grant named); a store made by a newer geofold.
+    fn prepare(&mut self, source: &SourceInfo) -> Result<(), Error>;
     /// Records the runs as `running`, visible at once.
     ///
     /// # Errors
     /// Database or file errors.
-    fn begin(&mut self, info: &SourceInfo, records: &[RunRecord]) -> Result<(), Error>;
-    /// Writes all result rows of the runs and marks them succeeded, atomically:
-    /// on error nothing of these runs' results remains.
+    fn begin(&mut self, source: &SourceInfo, records: &[RunRecord]) -> Result<(), Error>;
+    /// Writes all result rows of the runs, marks them succeeded and points the
+    /// job's map layers at the primary run, atomically: on error nothing of
+    /// these runs' results remains.
     ///
     /// # Errors
     /// Database or file errors.
     fn commit(
         &mut self,
-        info: &SourceInfo,
-        dataset: &Dataset,
+        source: &SourceInfo,
+        data: &Dataset,
         runs: &[FinishedRun<'_>],
     ) -> Result<StoreReport, Error>;
     /// Marks the runs failed with the message (best effort: logs its own failure).
     fn fail(&mut self, records: &[RunRecord], message: &str);
+    /// The runs of a job (or of every job), newest first, at most `limit`.
+    ///
+    /// # Errors
+    /// Database or file errors.
+    fn runs(&mut self, job: Option<&str>, limit: usize) -> Result<Vec<StoredRun>, Error>;
+    /// Pins run `run_id` as its job's baseline (unpinning the job's others).
+    ///
+    /// # Errors
+    /// An unknown or unsuccessful run.
+    fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error>;
 }
 
-/// The default job label for a source table: its table name, lowercased, with
-/// every character outside `[a-z0-9_]` replaced by `_`, prefixed with `job_`
-/// when it does not start with a letter.
+impl dyn ResultStore + '_ {
+    /// The job's latest successful primary run.
+    ///
+    /// # Errors
+    /// As [`ResultStore::runs`].
+    pub fn last_successful(&mut self, job: &str) -> Result<Option<StoredRun>, Error> {
+        Ok(self
+            .runs(Some(job), usize::MAX)?
+            .into_iter()
+            .find(|run| run.status == "succeeded" && run.primary_run_id.is_none()))
+    }
+
+    /// The job's pinned baseline run.
+    ///
+    /// # Errors
+    /// As [`ResultStore::runs`].
+    pub fn pinned(&mut self, job: &str) -> Result<Option<StoredRun>, Error> {
+        Ok(self
+            .runs(Some(job), usize::MAX)?
+            .into_iter()
+            .find(|run| run.pinned))
+    }
+}
+
+/// Longest job label: a job's layers add `_regions`, and PostgreSQL cuts
+/// names at 63 bytes.
+pub const MAX_JOB_LEN: usize = 63 - crate::results::REGIONS_SUFFIX.len();
+
+/// The default job label for a source table: its schema and table name (so
+/// `a.units` and `b.units` differ), or a GeoPackage layer's name, lowercased,
+/// with every character outside `[a-z0-9_]` replaced by `_`, prefixed with
+/// `job_` when it does not start with a letter, cut to [`MAX_JOB_LEN`].
 pub fn default_job(table: &str) -> String {
-    let name = table.rsplit(['.', ':', '/']).next().unwrap_or(table);
-    sanitize_job(name)
+    let name = match table.rsplit_once(':') {
+        Some((_, layer)) => layer.to_string(),
+        None => table.replace('.', "_"),
+    };
+    sanitize_job(&name)
 }
 
 /// Makes a label usable as a table or view name (see [`default_job`]).
 pub fn sanitize_job(label: &str) -> String {
     let mut name: String = label
-        .trim_matches('"')
         .chars()
+        .filter(|&c| c != '"')
         .map(|c| {
             if c.is_ascii_alphanumeric() {
                 c.to_ascii_lowercase()
@@ -176,42 +285,38 @@ pub fn sanitize_job(label: &str) -> String {
     if !name.starts_with(|c: char| c.is_ascii_lowercase()) {
         name = format!("job_{name}");
     }
-    name.truncate(60);
+    name.truncate(MAX_JOB_LEN);
     name
 }
-
-/// Table names the results store uses itself; a job cannot be named like them.
-pub const RESERVED_NAMES: &[&str] = &[
-    "runs",
-    "fold_members",
-    "predictions",
-    "unit_errors",
-    "fold_scores",
-    "run_scores",
-    "blocks",
-    "schema_version",
-    "store_settings",
-];
 
 /// Checks a job label.
 ///
 /// # Errors
-/// [`Error::Usage`] for a label that is not `[a-z][a-z0-9_]*` or is reserved.
+/// [`Error::Usage`] for a label that is not `[a-z][a-z0-9_]*` of at most
+/// [`MAX_JOB_LEN`] bytes, is a results table's name, or is a GeoPackage or
+/// SQLite system name.
 pub fn check_job(job: &str) -> Result<(), Error> {
-    let valid = job.len() <= 60
-        && job.starts_with(|c: char| c.is_ascii_lowercase())
+    let valid = job.starts_with(|c: char| c.is_ascii_lowercase())
         && job
             .chars()
             .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '_');
-    if !valid {
+    if !valid || job.len() > MAX_JOB_LEN {
         return Err(Error::Usage(format!(
-            "--job {job:?}: a job label is lower-case letters, digits and _, starting with a letter (at most 60)"
+            "--job {job:?}: a job label is lower-case letters, digits and _, starting with a letter, \
+             at most {MAX_JOB_LEN} characters (its layers add _regions, and PostgreSQL names end at 63)"
         )));
     }
-    if RESERVED_NAMES.contains(&job) || job.ends_with("_blocks") {
+    if crate::results::reserved_names().contains(&job) {
         return Err(Error::Usage(format!(
-            "--job {job:?} is reserved: results tables use that name (and job views add _blocks)"
+            "--job {job:?} is reserved: the results use that name"
         )));
+    }
+    for prefix in ["gpkg_", "rtree_", "sqlite_", "pg_"] {
+        if job.starts_with(prefix) {
+            return Err(Error::Usage(format!(
+                "--job {job:?}: names starting with {prefix} belong to the GeoPackage, SQLite or PostgreSQL system tables"
+            )));
+        }
     }
     Ok(())
 }
@@ -224,54 +329,80 @@ pub fn add_count(counts: &mut Vec<(String, u64)>, table: &str, rows: u64) {
     }
 }
 
-/// The columns a run reads, in order: id, geometry, target, features.
-pub fn wanted_columns<'a>(id: &'a str, geom: &'a str, columns: &'a ColumnSpec) -> Vec<&'a str> {
-    [id, geom, columns.target.as_str()]
-        .into_iter()
-        .chain(columns.features.iter().map(String::as_str))
-        .collect()
+/// How a store compares column names.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NameMatch {
+    /// As PostgreSQL does for a quoted name, falling back to the lower-case
+    /// form an unquoted name folds to.
+    Postgres,
+    /// As SQLite does: ignoring ASCII case.
+    Sqlite,
 }
 
-/// Every wanted column that `exists` does not know, as `column a, column b`;
-/// None when all exist.
-pub fn missing_columns(wanted: &[&str], exists: impl Fn(&str) -> bool) -> Option<String> {
-    let missing: Vec<String> = wanted
-        .iter()
-        .filter(|name| !exists(name))
-        .map(|name| format!("column {name}"))
-        .collect();
-    (!missing.is_empty()).then(|| missing.join(", "))
-}
-
-/// Checks the fixed properties a results store recorded when it was created
-/// (`store_settings`: `unit_id_type`, `block_srid`) against what this source
-/// needs. `elsewhere` says where to write instead.
+/// Finds the columns the user named among `existing`, as the store matches
+/// names. Returns the actual names, in the order asked; every missing column
+/// is listed at once with the closest existing names.
 ///
 /// # Errors
-/// [`Error::Store`] naming the property that differs.
-pub fn check_store_settings(
-    store: &str,
-    settings: &[(String, String)],
-    unit_id_type: &str,
-    block_srid: i32,
-    elsewhere: &str,
-) -> Result<(), Error> {
-    for (key, value) in settings {
-        let expected = match key.as_str() {
-            "unit_id_type" => unit_id_type.to_string(),
-            "block_srid" => block_srid.to_string(),
-            _ => continue,
+/// [`Error::NotFound`] naming each missing column, `where_` (e.g. `table x.y`)
+/// and suggestions.
+pub fn resolve_columns(
+    wanted: &[&str],
+    existing: &[String],
+    rule: NameMatch,
+    where_: &str,
+) -> Result<Vec<String>, Error> {
+    let mut found = Vec::with_capacity(wanted.len());
+    let mut missing = Vec::new();
+    for name in wanted {
+        let exact = existing.iter().find(|c| c.as_str() == *name);
+        let loose = match rule {
+            NameMatch::Postgres => existing.iter().find(|c| **c == name.to_lowercase()),
+            NameMatch::Sqlite => existing.iter().find(|c| c.eq_ignore_ascii_case(name)),
         };
-        if *value != expected {
-            return Err(Error::Store {
-                store: store.to_string(),
-                problem: format!(
-                    "it holds results with {key} {value}, but this source needs {expected}; {elsewhere}"
-                ),
-            });
+        match exact.or(loose) {
+            Some(column) => found.push(column.clone()),
+            None => missing.push(format!("column {name}{}", suggest(name, existing))),
         }
     }
-    Ok(())
+    if missing.is_empty() {
+        Ok(found)
+    } else {
+        Err(Error::NotFound {
+            what: format!("{} in {where_}", missing.join(", ")),
+        })
+    }
+}
+
+/// ` (did you mean a, b?)` with up to three existing names close to `name`
+/// (Jaro–Winkler similarity 0.8 or more, or one of at least 3 letters
+/// contained in the other, ignoring case), or nothing.
+pub fn suggest(name: &str, existing: &[String]) -> String {
+    let lower = name.to_lowercase();
+    let mut scored: Vec<(f64, &String)> = existing
+        .iter()
+        .map(|candidate| {
+            let other = candidate.to_lowercase();
+            let mut score = strsim::jaro_winkler(&lower, &other);
+            let (short, long) = if lower.len() <= other.len() {
+                (&lower, &other)
+            } else {
+                (&other, &lower)
+            };
+            if short.len() >= 3 && long.contains(short.as_str()) {
+                score = score.max(0.9);
+            }
+            (score, candidate)
+        })
+        .filter(|(score, _)| *score >= 0.8)
+        .collect();
+    scored.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(b.1)));
+    let names: Vec<&str> = scored.iter().take(3).map(|(_, c)| c.as_str()).collect();
+    if names.is_empty() {
+        String::new()
+    } else {
+        format!(" (did you mean {}?)", names.join(", "))
+    }
 }
 
 #[cfg(test)]
@@ -279,35 +410,66 @@ mod tests {
     use super::*;
 
     #[test]
-    fn default_jobs_are_clean_identifiers() {
-        assert_eq!(default_job("public.Sub-Catchments"), "sub_catchments");
+    fn default_jobs_include_the_schema_and_are_clean_identifiers() {
+        assert_eq!(
+            default_job("public.Sub-Catchments"),
+            "public_sub_catchments"
+        );
+        assert_eq!(default_job("a.units"), "a_units");
+        assert_ne!(default_job("a.units"), default_job("b.units"));
         assert_eq!(default_job("basin.gpkg:2024 units"), "job_2024_units");
         assert!(check_job(&default_job("x\"; DROP TABLE y; --")).is_ok());
         assert!(check_job("runs").is_err());
+        assert!(check_job("fold_scores").is_err());
+        assert!(check_job("gpkg_contents").is_err());
         assert!(check_job("Bad").is_err());
+        assert!(check_job(&"a".repeat(MAX_JOB_LEN + 1)).is_err());
+        assert!(default_job(&"x".repeat(200)).len() <= MAX_JOB_LEN);
     }
 
     #[test]
-    fn missing_columns_are_all_listed() {
-        let present = ["id", "geom", "y"];
-        let exists = |name: &str| present.contains(&name);
-        assert_eq!(missing_columns(&["id", "geom", "y"], exists), None);
+    fn columns_resolve_as_each_store_matches_and_missing_ones_get_suggestions() {
+        let existing: Vec<String> = ["id", "geom", "rainfall_mm", "Elevation"]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
         assert_eq!(
-            missing_columns(&["id", "rain", "geom", "soil"], exists).as_deref(),
-            Some("column rain, column soil")
+            resolve_columns(
+                &["RAINFALL_MM", "elevation"],
+                &existing,
+                NameMatch::Sqlite,
+                "t"
+            )
+            .unwrap(),
+            vec!["rainfall_mm", "Elevation"]
         );
+        let error = resolve_columns(
+            &["Rainfall_mm", "rainfal_mm", "soil"],
+            &existing,
+            NameMatch::Postgres,
+            "table x.y",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(
+            error.contains("column rainfal_mm (did you mean rainfall_mm?)"),
+            "{error}"
+        );
+        assert!(
+            error.contains("column soil,") || error.ends_with("column soil in table x.y"),
+            "{error}"
+        );
+        assert!(!error.contains("Rainfall_mm"), "{error}");
     }
 
     #[test]
-    fn a_store_made_for_another_id_kind_or_srid_is_refused() {
-        let settings = vec![
-            ("unit_id_type".to_string(), "bigint".to_string()),
-            ("block_srid".to_string(), "32631".to_string()),
-        ];
-        assert!(check_store_settings("s", &settings, "bigint", 32631, "elsewhere").is_ok());
-        let error = check_store_settings("s", &settings, "text", 32631, "elsewhere").unwrap_err();
-        assert!(error.to_string().contains("unit_id_type bigint"), "{error}");
-        assert_eq!(error.exit_code(), crate::error::exit::DATA);
-        assert!(check_store_settings("s", &settings, "bigint", 3035, "elsewhere").is_err());
+    fn lengths_are_described_in_the_crs_unit() {
+        assert_eq!(describe_length(4000.0, Some("metre")), "4 km");
+        assert_eq!(describe_length(800.0, Some("metre")), "800 m");
+        assert_eq!(describe_length(2.5, None), "2.5 CRS units");
+        assert_eq!(
+            describe_length(300.0, Some("US survey foot")),
+            "300 × US survey foot"
+        );
     }
 }

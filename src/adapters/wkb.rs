@@ -1,50 +1,94 @@
-//! Small WKB writers for the polygons geofold creates itself (grid blocks).
+//! WKB for the region polygons geofold makes itself (blocks and other fold
+//! regions), and the length unit of a CRS's WKT.
 //!
-//! OGC Simple Features WKB (little-endian, byte 1), with the PostGIS EWKB SRID
-//! flag `0x20000000` when an SRID is given. Source geometries are never
-//! re-encoded here: they travel as the bytes the source gave.
+//! OGC Simple Features WKB (little-endian, byte order byte 1), with the
+//! PostGIS EWKB SRID flag `0x20000000` when an SRID is given. Source
+//! geometries are never re-encoded here: they travel as the bytes the source
+//! gave.
 
-/// WKB of a single-ring polygon; EWKB with `srid` when given.
-pub fn polygon(ring: &[[f64; 2]], srid: Option<i32>) -> Vec<u8> {
-    let mut out = Vec::with_capacity(13 + 4 + ring.len() * 16 + 4);
+use geo_types::{LineString, MultiPolygon};
+
+/// WKB of a multipolygon (every ring of every polygon, holes included); EWKB
+/// with `srid` when given.
+pub fn multipolygon(geometry: &MultiPolygon<f64>, srid: Option<i32>) -> Vec<u8> {
+    let points: usize = geometry
+        .0
+        .iter()
+        .map(|p| p.exterior().0.len() + p.interiors().iter().map(|r| r.0.len()).sum::<usize>())
+        .sum();
+    let mut out = Vec::with_capacity(13 + geometry.0.len() * 13 + points * 16);
     out.push(1u8);
     match srid {
         Some(srid) => {
-            out.extend_from_slice(&(3u32 | 0x2000_0000).to_le_bytes());
+            out.extend_from_slice(&(6u32 | 0x2000_0000).to_le_bytes());
             out.extend_from_slice(&srid.to_le_bytes());
         }
-        None => out.extend_from_slice(&3u32.to_le_bytes()),
+        None => out.extend_from_slice(&6u32.to_le_bytes()),
     }
-    out.extend_from_slice(&1u32.to_le_bytes());
-    out.extend_from_slice(&(ring.len() as u32).to_le_bytes());
-    for point in ring {
-        out.extend_from_slice(&point[0].to_le_bytes());
-        out.extend_from_slice(&point[1].to_le_bytes());
+    out.extend_from_slice(&(geometry.0.len() as u32).to_le_bytes());
+    for polygon in &geometry.0 {
+        out.push(1u8);
+        out.extend_from_slice(&3u32.to_le_bytes());
+        let rings: Vec<&LineString<f64>> = std::iter::once(polygon.exterior())
+            .chain(polygon.interiors())
+            .collect();
+        out.extend_from_slice(&(rings.len() as u32).to_le_bytes());
+        for ring in rings {
+            out.extend_from_slice(&(ring.0.len() as u32).to_le_bytes());
+            for c in &ring.0 {
+                out.extend_from_slice(&c.x.to_le_bytes());
+                out.extend_from_slice(&c.y.to_le_bytes());
+            }
+        }
     }
     out
 }
 
-/// The closed ring of a polygon, as `[x, y]` pairs.
-pub fn ring_of(polygon: &geo_types::Polygon<f64>) -> Vec<[f64; 2]> {
-    polygon.exterior().0.iter().map(|c| [c.x, c.y]).collect()
+/// The name of the last unit a WKT names (`UNIT["metre",1]` in WKT1,
+/// `LENGTHUNIT["metre",1]` in WKT2): for a projected CRS its length unit.
+pub fn wkt_length_unit(wkt: &str) -> Option<String> {
+    let at = wkt.rfind("UNIT[\"")?;
+    let rest = &wkt[at + 6..];
+    let name = &rest[..rest.find('"')?];
+    (!name.is_empty()).then(|| name.to_string())
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use geo_types::{polygon, Geometry};
     use geozero::ToGeo;
 
     #[test]
-    fn decodes_back_with_geozero() {
-        let ring = [[0.0, 0.0], [1.0, 0.0], [1.0, 1.0], [0.0, 0.0]];
-        let geometry = geozero::wkb::Wkb(polygon(&ring, None)).to_geo().unwrap();
-        let geo_types::Geometry::Polygon(p) = geometry else {
-            panic!("not a polygon")
-        };
-        assert_eq!(ring_of(&p), ring.to_vec());
-        let geometry = geozero::wkb::Ewkb(polygon(&ring, Some(3035)))
+    fn decodes_back_with_geozero_holes_and_all() {
+        let shape = MultiPolygon::new(vec![
+            polygon!(
+                exterior: [(x: 0.0, y: 0.0), (x: 4.0, y: 0.0), (x: 4.0, y: 4.0), (x: 0.0, y: 0.0)],
+                interiors: [[(x: 1.0, y: 1.0), (x: 2.0, y: 1.0), (x: 2.0, y: 2.0), (x: 1.0, y: 1.0)]],
+            ),
+            polygon![(x: 10.0, y: 0.0), (x: 11.0, y: 0.0), (x: 11.0, y: 1.0), (x: 10.0, y: 0.0)],
+        ]);
+        let decoded = geozero::wkb::Wkb(multipolygon(&shape, None))
             .to_geo()
             .unwrap();
-        assert!(matches!(geometry, geo_types::Geometry::Polygon(_)));
+        assert_eq!(decoded, Geometry::MultiPolygon(shape.clone()));
+        let decoded = geozero::wkb::Ewkb(multipolygon(&shape, Some(3035)))
+            .to_geo()
+            .unwrap();
+        assert_eq!(decoded, Geometry::MultiPolygon(shape));
+    }
+
+    #[test]
+    fn length_units_are_read_from_wkt1_and_wkt2() {
+        assert_eq!(
+            wkt_length_unit(crate::demo::DEMO_SRS_WKT).as_deref(),
+            Some("metre")
+        );
+        assert_eq!(
+            wkt_length_unit("PROJCRS[\"x\",CS[Cartesian,2],LENGTHUNIT[\"US survey foot\",0.3048]]")
+                .as_deref(),
+            Some("US survey foot")
+        );
+        assert_eq!(wkt_length_unit("undefined"), None);
     }
 }

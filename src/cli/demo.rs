@@ -2,21 +2,21 @@
 //! random folds side by side, and say where to look.
 //!
 //! With no arguments everything happens in a GeoPackage (no server needed);
-//! with `--db` the scenario is loaded into PostGIS and validated there.
+//! with `--db` the scenario is loaded into PostGIS and validated there. Both
+//! build a run specification and go through the one pipeline.
 
 use std::path::PathBuf;
 
 use clap::Args;
 
-use crate::adapters::gpkg::{self, GpkgSource, GpkgStore};
-use crate::adapters::postgis::read::PostgisSource;
-use crate::adapters::postgis::write::PostgisStore;
-use crate::adapters::postgis::{load, Session};
-use crate::adapters::{ColumnSpec, ResultStore, Source};
-use crate::cli::run::{execute, SchemeName, ValidationArgs, DEFAULT_SEED};
+use crate::adapters::postgis::Session;
+use crate::adapters::ColumnSpec;
+use crate::cli::run::DEFAULT_SEED;
+use crate::core::options::Options;
 use crate::demo::{generate, DEMO_BLOCK_SIZE_M, DEMO_FEATURES, DEMO_LAYER, DEMO_TARGET};
 use crate::error::Error;
 use crate::report::Summary;
+use crate::spec::{Limits, ResultsRef, RunSpec, SourceRef};
 
 /// Job label of the demo runs.
 pub const DEMO_JOB: &str = "demo_nitrate";
@@ -53,60 +53,69 @@ pub struct DemoArgs {
 /// Any [`Error`].
 pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
     let units = generate();
-    let columns = ColumnSpec {
-        id: Some("id".into()),
-        geom: Some("geom".into()),
-        target: DEMO_TARGET.into(),
-        features: DEMO_FEATURES.iter().map(|s| s.to_string()).collect(),
-    };
-    let validation = ValidationArgs {
-        scheme: SchemeName::Grid,
-        block_size: Some(DEMO_BLOCK_SIZE_M),
-        grid_origin: None,
-        folds: args.folds,
-        repeats: 1,
-        seed: args.seed,
-        also_random: true,
-        model: "ols".into(),
-    };
-    let (mut source, mut store, hint): (Box<dyn Source>, Box<dyn ResultStore>, String) = match &args
-        .db
-    {
+    let (source, results, hint) = match &args.db {
         Some(db) => {
             let session = Session::connect(Some(db))?;
-            load::load_demo(&session, "demo", DEMO_LAYER, &units)?;
-            let table = format!("demo.{DEMO_LAYER}");
+            crate::demo::postgis::load_demo(&session, "demo", DEMO_LAYER, &units)?;
             (
-                Box::new(PostgisSource::open(session, &table, &columns, None)?),
-                Box::new(PostgisStore::new(
-                    Session::connect(Some(db))?,
-                    "geofold_demo",
-                )),
+                SourceRef::Postgis {
+                    db: Some(db.clone()),
+                    table: format!("demo.{DEMO_LAYER}"),
+                },
+                ResultsRef::Postgis {
+                    db: Some(db.clone()),
+                    schema: "geofold_demo".into(),
+                },
                 format!(
                     "open in QGIS: PostGIS layers geofold_demo.{DEMO_JOB} (per-unit errors) and \
-                         geofold_demo.{DEMO_JOB}_blocks (blocks); the source is {table}"
+                     geofold_demo.{DEMO_JOB}_regions (blocks coloured by fold); the source is demo.{DEMO_LAYER}"
                 ),
             )
         }
         None => {
-            gpkg::write_demo(&args.out, &units)?;
+            crate::demo::gpkg::write_demo(&args.out, &units)?;
             (
-                    Box::new(GpkgSource::open(&args.out, Some(DEMO_LAYER), &columns)?),
-                    Box::new(GpkgStore::open(&args.out)?),
-                    format!(
-                        "open {} in QGIS or any GIS: layer {DEMO_JOB} (per-unit errors of the latest run) \
-                         and {DEMO_JOB}_blocks (blocks and their folds); the source layer is {DEMO_LAYER}",
-                        args.out.display()
-                    ),
-                )
+                SourceRef::Gpkg {
+                    file: args.out.clone(),
+                    layer: Some(DEMO_LAYER.into()),
+                },
+                ResultsRef::Gpkg {
+                    file: args.out.clone(),
+                },
+                format!(
+                    "open {} in QGIS or any GIS: layer {DEMO_JOB} (per-unit errors of the latest run) \
+                     and {DEMO_JOB}_regions (blocks coloured by fold); the source layer is {DEMO_LAYER}",
+                    args.out.display()
+                ),
+            )
         }
     };
-    let summary = execute(
-        source.as_mut(),
-        store.as_mut(),
-        &validation,
-        Some(DEMO_JOB),
-        false,
-    )?;
+    let mut scheme_options = Options::new();
+    scheme_options.insert("block-size".into(), serde_json::json!(DEMO_BLOCK_SIZE_M));
+    scheme_options.insert("folds".into(), args.folds.into());
+    let spec = RunSpec {
+        source,
+        columns: ColumnSpec {
+            id: Some("id".into()),
+            geom: Some("geom".into()),
+            target: DEMO_TARGET.into(),
+            features: DEMO_FEATURES.iter().map(|s| s.to_string()).collect(),
+        },
+        distance_srid: None,
+        assume_metres: false,
+        strict: false,
+        scheme: "grid".into(),
+        scheme_options,
+        model: "ols".into(),
+        model_options: Options::new(),
+        exclusion_radius: None,
+        repeats: 1,
+        seed: args.seed,
+        compare_random: true,
+        results,
+        job: Some(DEMO_JOB.into()),
+        limits: Limits::default(),
+    };
+    let summary = crate::pipeline::run(&spec)?;
     Ok((summary, hint))
 }

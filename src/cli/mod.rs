@@ -11,9 +11,10 @@ use clap::{Parser, Subcommand};
 pub const EXIT_STATUS_HELP: &str = "\
 EXIT STATUS
   0   ok: results written
+  2   busy: another run of the same job is running (see --wait); nothing was done
   64  usage: bad options or arguments
   65  bad input data: duplicate ids, a row skipped under --strict, an unfittable fold,
-      a results store made for another id type or CRS
+      a geometry column mixing SRIDs, a results store geofold did not make
   66  the source table, schema, column, file or layer does not exist
   69  the database server is unreachable, or PostGIS is not installed
   70  internal error (a bug: please report it)
@@ -24,10 +25,10 @@ EXIT STATUS
   78  bad connection string or configuration
 
 ENVIRONMENT
-  Without --db, and for whatever --db leaves out, PGHOST, PGPORT, PGDATABASE, PGUSER,
-  PGPASSWORD, PGSSLMODE, PGAPPNAME and PGCONNECT_TIMEOUT are read as libpq does; a missing
-  password is looked up in PGPASSFILE or ~/.pgpass. sslmode=prefer (the default) and require
-  encrypt without verifying the server certificate, as libpq does. RUST_LOG sets the log filter.";
+  Without --db, and for whatever --db leaves out, the connection service file and the PG*
+  variables (PGHOST, PGPORT, PGDATABASE, PGUSER, PGPASSWORD, PGSSLMODE, PGAPPNAME, …) are read
+  as libpq does; a missing password is looked up in PGPASSFILE or ~/.pgpass.
+  RUST_LOG sets the log filter; NO_COLOR turns colour off.";
 
 /// Spatial cross-validation of predictive models, in and out of PostGIS and GeoPackage.
 ///

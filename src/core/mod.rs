@@ -7,6 +7,8 @@ pub mod geometry;
 pub mod metrics;
 pub mod models;
 pub mod neighbours;
+pub mod options;
+pub mod parallel;
 pub mod units;
 pub mod validate;
 

@@ -131,13 +131,13 @@ mod tests {
     }
 
     fn scattered(n: usize) -> Vec<[f64; 2]> {
-        // A deterministic low-discrepancy scatter (additive recurrence with the
-        // golden ratio), so the tests need no random numbers.
-        let phi = 0.618_033_988_749_894_9;
+        // The R2 sequence (Roberts 2018, additive recurrence with the plastic
+        // number): well spread in the plane, no random numbers needed.
+        let (a1, a2) = (0.754_877_666_246_692_7, 0.569_840_290_998_053_2);
         (0..n)
             .map(|i| {
-                let u = (i as f64 * phi).fract();
-                let v = (i as f64 * phi * phi).fract();
+                let u = (i as f64 * a1).fract();
+                let v = (i as f64 * a2).fract();
                 [u * 1000.0, v * 1000.0]
             })
             .collect()

@@ -1,6 +1,8 @@
 //! Fixture builders for the core's unit tests.
 
-use crate::core::units::{Dataset, GeometryKinds, IdKind, SkipCounts, UnitId};
+use crate::core::folds::SchemeInput;
+use crate::core::neighbours::NeighbourIndex;
+use crate::core::units::{Dataset, GeometryKinds, IdKind, Skipped, UnitId};
 
 /// A dataset of points with ids 1.., target = x + y, one feature = x.
 pub fn points_dataset(points: &[[f64; 2]]) -> Dataset {
@@ -17,6 +19,30 @@ pub fn points_dataset(points: &[[f64; 2]]) -> Dataset {
             other: false,
         },
         rows_read: points.len() as u64,
-        skipped: SkipCounts::default(),
+        skipped: Skipped::default(),
+    }
+}
+
+/// Points with their neighbour index, to hand to a scheme.
+pub struct Points {
+    /// The points.
+    pub points: Vec<[f64; 2]>,
+    /// Their index.
+    pub index: NeighbourIndex,
+}
+
+impl Points {
+    /// Indexes `points`.
+    pub fn new(points: Vec<[f64; 2]>) -> Points {
+        let index = NeighbourIndex::new(&points);
+        Points { points, index }
+    }
+
+    /// What a scheme sees.
+    pub fn input(&self) -> SchemeInput<'_> {
+        SchemeInput {
+            points: &self.points,
+            index: &self.index,
+        }
     }
 }

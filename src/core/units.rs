@@ -7,7 +7,6 @@
 //! id order, so fold assignment does not depend on the row order of the source.
 
 use std::cmp::Ordering;
-use std::collections::BTreeMap;
 use std::fmt;
 
 use geo_types::Geometry;
@@ -62,27 +61,41 @@ pub enum IdKind {
     Text,
 }
 
-/// Why a row was skipped. Each skipped row counts once, under the first reason
-/// found in this order: geometry, target, features (in the order given).
-#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize)]
-pub struct SkipCounts {
-    /// Rows whose geometry is NULL.
-    pub no_geometry: u64,
-    /// Rows whose geometry is empty.
-    pub empty_geometry: u64,
-    /// Rows whose target is NULL, NaN or infinite.
-    pub missing_target: u64,
-    /// Rows whose feature is NULL, NaN or infinite, by feature column.
-    pub missing_feature: BTreeMap<String, u64>,
+/// Why rows were skipped, with the ids of the skipped rows. Each skipped row
+/// counts once, under the first reason found in this order: geometry (NULL,
+/// then empty), target, features (in the order given).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Skipped {
+    /// `(rank, reason, ids)`, ordered by rank (the order above).
+    reasons: Vec<(usize, String, Vec<UnitId>)>,
 }
 
-impl SkipCounts {
+impl Skipped {
+    /// Records a skipped row under `reason` (ranked `rank` for ordering).
+    pub fn add(&mut self, rank: usize, reason: &str, id: UnitId) {
+        match self.reasons.iter_mut().find(|(_, r, _)| r == reason) {
+            Some((_, _, ids)) => ids.push(id),
+            None => {
+                self.reasons.push((rank, reason.to_string(), vec![id]));
+                self.reasons.sort_by_key(|(rank, _, _)| *rank);
+            }
+        }
+    }
+
     /// All skipped rows.
     pub fn total(&self) -> u64 {
-        self.no_geometry
-            + self.empty_geometry
-            + self.missing_target
-            + self.missing_feature.values().sum::<u64>()
+        self.reasons
+            .iter()
+            .map(|(_, _, ids)| ids.len() as u64)
+            .sum()
+    }
+
+    /// The count of one reason (0 when absent).
+    pub fn count(&self, reason: &str) -> u64 {
+        self.reasons
+            .iter()
+            .find(|(_, r, _)| r == reason)
+            .map_or(0, |(_, _, ids)| ids.len() as u64)
     }
 
     /// The skipped rows as one phrase, e.g. `2 missing feature rainfall_mm, 1 no geometry`
@@ -95,24 +108,46 @@ impl SkipCounts {
             .join(", ")
     }
 
-    /// `(reason, count)` pairs with a non-zero count, for summaries.
+    /// `(reason, count)` pairs, in rank order.
     pub fn reasons(&self) -> Vec<(String, u64)> {
-        let mut reasons = Vec::new();
-        for (name, count) in [
-            ("no geometry", self.no_geometry),
-            ("empty geometry", self.empty_geometry),
-            ("missing target", self.missing_target),
-        ] {
-            if count > 0 {
-                reasons.push((name.to_string(), count));
-            }
+        self.reasons
+            .iter()
+            .map(|(_, reason, ids)| (reason.clone(), ids.len() as u64))
+            .collect()
+    }
+
+    /// `(reason, ids)` pairs, in rank order; ids in the order the rows were read.
+    pub fn ids(&self) -> impl Iterator<Item = (&str, &[UnitId])> {
+        self.reasons
+            .iter()
+            .map(|(_, reason, ids)| (reason.as_str(), ids.as_slice()))
+    }
+
+    /// The counts by reason as a JSON object (what `runs.units_skipped` stores).
+    pub fn counts_json(&self) -> serde_json::Value {
+        let map: serde_json::Map<String, serde_json::Value> = self
+            .reasons
+            .iter()
+            .map(|(_, reason, ids)| (reason.clone(), ids.len().into()))
+            .collect();
+        serde_json::Value::Object(map)
+    }
+}
+
+impl Serialize for Skipped {
+    /// A list of `{reason, count, ids}` in rank order, every id as text.
+    fn serialize<S: serde::Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeSeq;
+        let mut seq = serializer.serialize_seq(Some(self.reasons.len()))?;
+        for (_, reason, ids) in &self.reasons {
+            let ids: Vec<String> = ids.iter().map(UnitId::to_string).collect();
+            seq.serialize_element(&serde_json::json!({
+                "reason": reason,
+                "count": ids.len(),
+                "ids": ids,
+            }))?;
         }
-        for (column, count) in &self.missing_feature {
-            if *count > 0 {
-                reasons.push((format!("missing feature {column}"), *count));
-            }
-        }
-        reasons
+        seq.end()
     }
 }
 
@@ -143,8 +178,8 @@ pub struct Dataset {
     pub geometry_kinds: GeometryKinds,
     /// Rows read from the source (used + skipped).
     pub rows_read: u64,
-    /// Skipped rows by reason.
-    pub skipped: SkipCounts,
+    /// Skipped rows by reason, with their ids.
+    pub skipped: Skipped,
 }
 
 /// Which geometry families the used units have, so writers can type their columns.
@@ -235,7 +270,7 @@ pub struct UnitCollector {
     strict: bool,
     rows: Vec<(UnitId, [f64; 2], f64)>,
     features: Vec<f64>,
-    skipped: SkipCounts,
+    skipped: Skipped,
     strict_problems: Vec<(Location, String)>,
     rows_read: u64,
     id_kind: Option<IdKind>,
@@ -258,7 +293,7 @@ impl UnitCollector {
             strict,
             rows: Vec::new(),
             features: Vec::new(),
-            skipped: SkipCounts::default(),
+            skipped: Skipped::default(),
             strict_problems: Vec::new(),
             rows_read: 0,
             id_kind: None,
@@ -292,7 +327,7 @@ impl UnitCollector {
         self.id_kind.get_or_insert(kind);
         let geometry = match geometry {
             RawGeometry::Null => {
-                self.skip(&id, None, "NULL geometry", |counts| counts.no_geometry += 1);
+                self.skip(id, None, 0, "no geometry", "NULL geometry");
                 return Ok(());
             }
             RawGeometry::Decoded(geometry) => geometry,
@@ -300,9 +335,7 @@ impl UnitCollector {
         let point = match representative_point(&geometry) {
             Some(point) => point,
             None => {
-                self.skip(&id, None, "empty geometry", |counts| {
-                    counts.empty_geometry += 1
-                });
+                self.skip(id, None, 1, "empty geometry", "empty geometry");
                 return Ok(());
             }
         };
@@ -311,10 +344,11 @@ impl UnitCollector {
             _ => {
                 let column = self.target_name.clone();
                 self.skip(
-                    &id,
+                    id,
                     Some(&column),
+                    2,
+                    "missing target",
                     "target is NULL, NaN or infinite",
-                    |counts| counts.missing_target += 1,
                 );
                 return Ok(());
             }
@@ -325,10 +359,11 @@ impl UnitCollector {
         {
             let column = self.feature_names[index].clone();
             self.skip(
-                &id,
+                id,
                 Some(&column),
+                3 + index,
+                &format!("missing feature {column}"),
                 "feature is NULL, NaN or infinite",
-                |counts| *counts.missing_feature.entry(column.clone()).or_insert(0) += 1,
             );
             return Ok(());
         }
@@ -346,14 +381,7 @@ impl UnitCollector {
         Ok(())
     }
 
-    fn skip(
-        &mut self,
-        id: &UnitId,
-        column: Option<&str>,
-        problem: &str,
-        count: impl FnOnce(&mut SkipCounts),
-    ) {
-        count(&mut self.skipped);
+    fn skip(&mut self, id: UnitId, column: Option<&str>, rank: usize, reason: &str, problem: &str) {
         if self.strict {
             self.strict_problems.push((
                 Location {
@@ -364,6 +392,7 @@ impl UnitCollector {
                 format!("{problem} (--strict forbids skipping rows)"),
             ));
         }
+        self.skipped.add(rank, reason, id);
     }
 
     /// Sorts by id, checks id uniqueness and returns the dataset.
@@ -484,11 +513,22 @@ mod tests {
         let dataset = collector.finish("id").unwrap();
         assert_eq!(dataset.len(), 1);
         assert_eq!(dataset.rows_read, 5);
-        assert_eq!(dataset.skipped.no_geometry, 1);
-        assert_eq!(dataset.skipped.empty_geometry, 1);
-        assert_eq!(dataset.skipped.missing_target, 1);
-        assert_eq!(dataset.skipped.missing_feature.get("b"), Some(&1));
+        assert_eq!(dataset.skipped.count("no geometry"), 1);
+        assert_eq!(dataset.skipped.count("empty geometry"), 1);
+        assert_eq!(dataset.skipped.count("missing target"), 1);
+        assert_eq!(dataset.skipped.count("missing feature b"), 1);
         assert_eq!(dataset.skipped.total(), 4);
+        assert_eq!(
+            dataset.skipped.describe(),
+            "1 no geometry, 1 empty geometry, 1 missing target, 1 missing feature b"
+        );
+        let ids: Vec<(&str, Vec<String>)> = dataset
+            .skipped
+            .ids()
+            .map(|(reason, ids)| (reason, ids.iter().map(UnitId::to_string).collect()))
+            .collect();
+        assert_eq!(ids[0], ("no geometry", vec!["2".to_string()]));
+        assert_eq!(ids[3], ("missing feature b", vec!["4".to_string()]));
     }
 
     #[test]

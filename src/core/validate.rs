@@ -1,308 +1,322 @@
 //! The validation itself: folds, a fit per fold, held-out predictions, scores.
 //!
-//! Pure: a [`Dataset`] and a [`Plan`] in, a [`RunOutcome`] out. Adapters read
-//! and write; this module knows nothing of where the data live.
+//! Pure: a [`Dataset`], a scheme and a model in, a [`RunOutcome`] out. It runs
+//! in two steps so that the pipeline can check the split before it records a
+//! run: [`assign_folds`] (every repetition's [`FoldSet`], cheap) and
+//! [`fit_and_score`] (the fits, predictions and scores).
+//!
+//! # Scores
+//! - Per fold: the family's scores of the fold's held-out predictions, with
+//!   its numbers of training, test and excluded units.
+//! - Pooled: the scores of all held-out predictions of all repetitions.
+//! - Spread: mean and sample SD of the per-fold scores; with several
+//!   repetitions, also of the per-repetition pooled scores, so users see how
+//!   much a score depends on the seed.
+//! - Baseline: the same folds with the training mean as the prediction (the
+//!   mean of the target over each fold's training units), computed on the
+//!   side, so every score has a reference.
 
 use serde::Serialize;
 
-use crate::core::folds::{FoldAssignment, FoldRng, SchemeSpec};
-use crate::core::metrics::{score, spread, Scores, Spread};
-use crate::core::models::{Model, TrainingSet};
+use crate::core::folds::{exclude_within, FoldRng, FoldScheme, FoldSet, SchemeInput};
+use crate::core::metrics::{spreads, Family, Scores, Spread};
+use crate::core::models::{FitError, Fitted, Model, TrainingSet};
+use crate::core::parallel::parallel_map;
 use crate::core::units::Dataset;
 use crate::error::Error;
 
+/// Largest number of repetitions a run takes.
+pub const MAX_REPEATS: u32 = 1000;
+
 /// What to run.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct Plan {
-    /// Fold scheme and its parameters.
-    pub scheme: SchemeSpec,
-    /// Number of repetitions, at least 1.
+pub struct Plan<'a> {
+    /// The fold scheme.
+    pub scheme: &'a dyn FoldScheme,
+    /// The model family.
+    pub model: &'a dyn Model,
+    /// Number of repetitions, 1 to [`MAX_REPEATS`].
     pub repeats: u32,
-    /// Seed of repetition streams (see [`FoldRng`]).
+    /// Seed of the repetition streams (see [`FoldRng`]).
     pub seed: u64,
+    /// Exclusion buffer radius in CRS units, if any.
+    pub exclusion_radius: Option<f64>,
 }
 
-/// Scores of one fold of one repetition.
+/// One fold's result.
 #[derive(Debug, Clone, Serialize)]
-pub struct FoldScore {
-    /// Repetition, 0-based.
-    pub repetition: u32,
-    /// Fold, 0-based.
-    pub fold: u32,
+pub struct FoldResult {
     /// Training units.
     pub n_train: usize,
     /// Held-out units.
     pub n_test: usize,
+    /// Units excluded from training (exclusion buffer).
+    pub n_excluded: usize,
     /// Scores of the held-out predictions.
     pub scores: Scores,
+    /// The fitted terms, intercept first (empty for models without them).
+    #[serde(skip)]
+    pub coefficients: Vec<(String, f64)>,
 }
 
 /// One repetition: its folds and the held-out prediction of every unit.
 #[derive(Debug, Clone)]
 pub struct Repetition {
-    /// The fold assignment.
-    pub assignment: FoldAssignment,
+    /// The folds.
+    pub folds: FoldSet,
     /// Held-out prediction of each unit, in dataset order.
     pub predicted: Vec<f64>,
-}
-
-/// Errors of one unit over all repetitions.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct UnitError {
-    /// Observed target.
-    pub observed: f64,
-    /// Mean held-out prediction over repetitions.
-    pub mean_predicted: f64,
-    /// Observed minus mean prediction.
-    pub mean_residual: f64,
-    /// sqrt(mean over repetitions of (predicted - observed)²).
-    pub rmse: f64,
-    /// Mean over repetitions of |predicted - observed|.
-    pub mae: f64,
-}
-
-/// Spread of per-fold scores over all folds of all repetitions.
-#[derive(Debug, Clone, Copy, Serialize)]
-pub struct FoldSpread {
-    /// RMSE.
-    pub rmse: Spread,
-    /// MAE.
-    pub mae: Spread,
-    /// Bias.
-    pub bias: Spread,
-    /// R² (folds where it is defined).
-    pub r2: Spread,
+    /// Per fold, in fold order.
+    pub fold_results: Vec<FoldResult>,
 }
 
 /// Everything a run produces.
 #[derive(Debug, Clone)]
 pub struct RunOutcome {
+    /// The model's family.
+    pub family: Family,
     /// One entry per repetition.
     pub repetitions: Vec<Repetition>,
-    /// Per fold and repetition.
-    pub fold_scores: Vec<FoldScore>,
-    /// Per unit, in dataset order.
-    pub unit_errors: Vec<UnitError>,
     /// Pooled over all held-out predictions of all repetitions.
     pub pooled: Scores,
-    /// Mean and SD of the per-fold scores.
-    pub fold_spread: FoldSpread,
+    /// Mean and SD of the per-fold scores over all folds of all repetitions.
+    pub fold_spread: Vec<(&'static str, Spread)>,
+    /// Mean and SD over repetitions of each repetition's pooled scores (with
+    /// more than one repetition).
+    pub repeat_spread: Option<Vec<(&'static str, Spread)>>,
+    /// Pooled scores of the training-mean baseline on the same folds.
+    pub baseline: Scores,
 }
 
-/// Runs the plan on the dataset with the model.
+/// Checks a number of repetitions.
 ///
 /// # Errors
-/// [`Error::Folds`] when the scheme cannot split the units; [`Error::Fit`] when a
-/// fold has too few training units or a rank-deficient design.
-pub fn cross_validate(
-    dataset: &Dataset,
-    plan: &Plan,
-    model: &dyn Model,
-) -> Result<RunOutcome, Error> {
-    if plan.repeats == 0 {
-        return Err(Error::Usage("--repeats must be at least 1".into()));
+/// [`Error::Usage`] outside 1 to [`MAX_REPEATS`].
+pub fn check_repeats(repeats: u32) -> Result<(), Error> {
+    if !(1..=MAX_REPEATS).contains(&repeats) {
+        return Err(Error::Usage(format!(
+            "--repeats must be between 1 and {MAX_REPEATS}, got {repeats}"
+        )));
     }
-    let n = dataset.len();
-    let mut repetitions = Vec::with_capacity(plan.repeats as usize);
-    let mut fold_scores = Vec::new();
+    Ok(())
+}
+
+/// The folds of every repetition, with the exclusion buffer applied. A
+/// scheme that draws nothing at random gives the same folds every time, so it
+/// is assigned once and repeated.
+///
+/// # Errors
+/// [`Error::Folds`] (or [`Error::Usage`]) when the scheme cannot split the units.
+pub fn assign_folds(input: &SchemeInput<'_>, plan: &Plan<'_>) -> Result<Vec<FoldSet>, Error> {
+    check_repeats(plan.repeats)?;
+    let mut sets: Vec<FoldSet> = Vec::with_capacity(plan.repeats as usize);
     for repetition in 0..plan.repeats {
-        let mut rng = FoldRng::new(plan.seed, repetition);
-        let assignment = plan.scheme.assign(dataset, &mut rng)?;
-        let mut predicted = vec![f64::NAN; n];
-        for fold in fit_folds(dataset, &assignment, repetition, model)? {
-            for (&unit, &value) in fold.test.iter().zip(&fold.predicted) {
-                predicted[unit] = value;
+        if !plan.scheme.randomised() {
+            if let Some(first) = sets.first() {
+                sets.push(first.clone());
+                continue;
             }
-            fold_scores.push(fold.score);
         }
+        let mut rng = FoldRng::new(plan.seed, repetition);
+        let mut set = plan.scheme.assign(input, &mut rng)?;
+        if let Some(radius) = plan.exclusion_radius {
+            exclude_within(&mut set, input, radius);
+        }
+        sets.push(set);
+    }
+    Ok(sets)
+}
+
+/// Fits every fold of every repetition and scores the held-out predictions.
+///
+/// # Errors
+/// [`Error::Fit`] for the first fold (lowest repetition, then fold) that
+/// cannot be fitted.
+pub fn fit_and_score(
+    data: &Dataset,
+    plan: &Plan<'_>,
+    sets: Vec<FoldSet>,
+) -> Result<RunOutcome, Error> {
+    let family = plan.model.family();
+    let mut repetitions = Vec::with_capacity(sets.len());
+    let mut baseline_pairs = Vec::with_capacity(data.len() * sets.len());
+    for (repetition, folds) in sets.into_iter().enumerate() {
+        let fits = fit_folds(data, plan.model, &folds, repetition as u32)?;
+        let test_units = folds.test_units();
+        let mut predicted = vec![f64::NAN; data.len()];
+        let means = training_means(data, &folds, &test_units);
+        let fold_results: Vec<FoldResult> = test_units
+            .iter()
+            .enumerate()
+            .map(|(fold, units)| {
+                let fit = &fits[fold];
+                let mut pairs = Vec::with_capacity(units.len());
+                for &unit in units {
+                    let value = fit.predict(&data.view(unit as usize));
+                    predicted[unit as usize] = value;
+                    pairs.push((data.target[unit as usize], value));
+                    baseline_pairs.push((data.target[unit as usize], means[fold]));
+                }
+                let n_excluded = folds.excluded_from(fold as u32).len();
+                FoldResult {
+                    n_train: data.len() - units.len() - n_excluded,
+                    n_test: units.len(),
+                    n_excluded,
+                    scores: family.score(&pairs),
+                    coefficients: fit.coefficients(),
+                }
+            })
+            .collect();
         repetitions.push(Repetition {
-            assignment,
+            folds,
             predicted,
+            fold_results,
         });
     }
-    let unit_errors = unit_errors(dataset, &repetitions);
-    let mut pooled_pairs = Vec::with_capacity(n * repetitions.len());
-    for repetition in &repetitions {
-        pooled_pairs.extend(
-            dataset
-                .target
-                .iter()
-                .copied()
-                .zip(repetition.predicted.iter().copied()),
-        );
-    }
-    let pooled = score(&pooled_pairs);
-    let fold_spread = FoldSpread {
-        rmse: spread(fold_scores.iter().map(|f| f.scores.rmse)),
-        mae: spread(fold_scores.iter().map(|f| f.scores.mae)),
-        bias: spread(fold_scores.iter().map(|f| f.scores.bias)),
-        r2: spread(fold_scores.iter().filter_map(|f| f.scores.r2)),
-    };
+    let pooled_pairs: Vec<(f64, f64)> = repetitions
+        .iter()
+        .flat_map(|r| data.target.iter().copied().zip(r.predicted.iter().copied()))
+        .collect();
+    let pooled = family.score(&pooled_pairs);
+    let fold_spread = spreads(
+        family,
+        repetitions
+            .iter()
+            .flat_map(|r| r.fold_results.iter().map(|f| &f.scores)),
+    );
+    let repeat_spread = (repetitions.len() > 1).then(|| {
+        let per_repetition: Vec<Scores> = repetitions
+            .iter()
+            .map(|r| {
+                let pairs: Vec<(f64, f64)> = data
+                    .target
+                    .iter()
+                    .copied()
+                    .zip(r.predicted.iter().copied())
+                    .collect();
+                family.score(&pairs)
+            })
+            .collect();
+        spreads(family, per_repetition.iter())
+    });
     Ok(RunOutcome {
+        family,
         repetitions,
-        fold_scores,
-        unit_errors,
         pooled,
         fold_spread,
+        repeat_spread,
+        baseline: family.score(&baseline_pairs),
     })
 }
 
-/// The held-out predictions and scores of one fold.
-struct FoldResult {
-    test: Vec<usize>,
-    predicted: Vec<f64>,
-    score: FoldScore,
-}
-
-/// Fits every fold of one repetition, on as many threads as the machine has
-/// (at most one per fold). Folds are independent, so the results do not depend
-/// on the number of threads; when several folds fail, the error reported is
-/// the one of the lowest fold.
-fn fit_folds(
-    dataset: &Dataset,
-    assignment: &FoldAssignment,
-    repetition: u32,
-    model: &dyn Model,
-) -> Result<Vec<FoldResult>, Error> {
-    let k = assignment.k as usize;
-    let threads = std::thread::available_parallelism()
-        .map(|n| n.get())
-        .unwrap_or(1)
-        .min(k)
-        .max(1);
-    let next = std::sync::atomic::AtomicUsize::new(0);
-    let mut slots: Vec<Option<Result<FoldResult, Error>>> = (0..k).map(|_| None).collect();
-    std::thread::scope(|scope| {
-        let workers: Vec<_> = (0..threads)
-            .map(|_| {
-                scope.spawn(|| {
-                    let mut done = Vec::new();
-                    loop {
-                        let fold = next.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
-                        if fold >= k {
-                            break;
-                        }
-                        done.push((
-                            fold,
-                            fit_fold(dataset, assignment, fold as u32, repetition, model),
-                        ));
-                    }
-                    done
-                })
-            })
-            .collect();
-        for worker in workers {
-            // A worker that panicked leaves its folds empty: reported below.
-            if let Ok(done) = worker.join() {
-                for (fold, result) in done {
-                    slots[fold] = Some(result);
-                }
-            }
-        }
-    });
-    slots
-        .into_iter()
+/// The mean target over each fold's training units.
+fn training_means(data: &Dataset, folds: &FoldSet, test_units: &[Vec<u32>]) -> Vec<f64> {
+    let total: f64 = data.target.iter().sum();
+    test_units
+        .iter()
         .enumerate()
-        .map(|(fold, slot)| {
-            slot.unwrap_or_else(|| {
-                Err(Error::Internal(format!("fold {} was not fitted", fold + 1)))
-            })
+        .map(|(fold, units)| {
+            let excluded = folds.excluded_from(fold as u32);
+            let removed: f64 = units
+                .iter()
+                .chain(excluded)
+                .map(|&unit| data.target[unit as usize])
+                .sum();
+            let count = data.len() - units.len() - excluded.len();
+            (total - removed) / count as f64
         })
         .collect()
 }
 
-fn fit_fold(
-    dataset: &Dataset,
-    assignment: &FoldAssignment,
-    fold: u32,
-    repetition: u32,
+/// Fits every fold of one repetition: the model's own all-folds fit when it
+/// has one, else fold by fold on the machine's cores. When several folds
+/// fail, the error reported is the one of the lowest fold.
+fn fit_folds(
+    data: &Dataset,
     model: &dyn Model,
-) -> Result<FoldResult, Error> {
-    let mut train = Vec::with_capacity(dataset.len());
-    let mut test = Vec::new();
-    for (unit, &unit_fold) in assignment.fold_of.iter().enumerate() {
-        if unit_fold == fold {
-            test.push(unit);
-        } else {
-            train.push(unit);
-        }
-    }
-    let fit_error = |problem: String| Error::Fit {
-        fold: fold + 1,
+    folds: &FoldSet,
+    repetition: u32,
+) -> Result<Vec<Box<dyn Fitted>>, Error> {
+    let k = folds.k as usize;
+    let test_units = folds.test_units();
+    let needed = model.min_training_units(data.n_features());
+    let too_few = |fold: usize| -> Option<FitError> {
+        let n_train = data.len() - test_units[fold].len() - folds.excluded_from(fold as u32).len();
+        (n_train < needed).then(|| FitError::TooFewUnits {
+            have: n_train,
+            need: needed,
+            what: format!(
+                "{} with {} features ({})",
+                model.name(),
+                data.n_features(),
+                data.feature_names.join(", ")
+            ),
+        })
+    };
+    let fold_error = |fold: usize, problem: FitError| Error::Fit {
+        fold: fold as u32 + 1,
         repetition: repetition + 1,
         model: model.name().to_string(),
         problem,
     };
-    let needed = model.min_training_units(dataset.n_features());
-    if train.len() < needed {
-        return Err(fit_error(format!(
-            "{} training units, but {} with {} features ({}) needs at least {needed}",
-            train.len(),
-            model.name(),
-            dataset.n_features(),
-            dataset.feature_names.join(", ")
-        )));
+    if let Some(problem) = (0..k).find_map(|fold| too_few(fold).map(|p| (fold, p))) {
+        return Err(fold_error(problem.0, problem.1));
     }
-    let predictor = model
-        .fit(&TrainingSet {
-            dataset,
-            rows: &train,
-        })
-        .map_err(fit_error)?;
-    let predicted: Vec<f64> = test
-        .iter()
-        .map(|&unit| predictor.predict(dataset.features_of(unit)))
-        .collect();
-    let pairs: Vec<(f64, f64)> = test
-        .iter()
-        .zip(&predicted)
-        .map(|(&unit, &value)| (dataset.target[unit], value))
-        .collect();
-    let score = FoldScore {
-        repetition,
-        fold,
-        n_train: train.len(),
-        n_test: test.len(),
-        scores: score(&pairs),
+    let results = match model.fit_folds(data, folds) {
+        Some(results) => results,
+        None => parallel_map(k, |fold| {
+            let excluded = folds.excluded_from(fold as u32);
+            let rows: Vec<u32> = (0..data.len() as u32)
+                .filter(|&unit| {
+                    folds.fold_of[unit as usize] as usize != fold
+                        && excluded.binary_search(&unit).is_err()
+                })
+                .collect();
+            model.fit(&TrainingSet { data, rows: &rows })
+        }),
     };
-    Ok(FoldResult {
-        test,
-        predicted,
-        score,
-    })
+    results
+        .into_iter()
+        .enumerate()
+        .map(|(fold, result)| result.map_err(|problem| fold_error(fold, problem)))
+        .collect()
 }
 
-fn unit_errors(dataset: &Dataset, repetitions: &[Repetition]) -> Vec<UnitError> {
-    let count = repetitions.len() as f64;
-    (0..dataset.len())
-        .map(|unit| {
-            let observed = dataset.target[unit];
-            let (mut sum, mut squares, mut absolute) = (0.0, 0.0, 0.0);
-            for repetition in repetitions {
-                let predicted = repetition.predicted[unit];
-                sum += predicted;
-                squares += (predicted - observed).powi(2);
-                absolute += (predicted - observed).abs();
-            }
-            let mean_predicted = sum / count;
-            UnitError {
-                observed,
-                mean_predicted,
-                mean_residual: observed - mean_predicted,
-                rmse: (squares / count).sqrt(),
-                mae: absolute / count,
-            }
-        })
-        .collect()
+/// A unit's errors over all repetitions of a run.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct UnitSummary {
+    /// Mean held-out prediction over repetitions.
+    pub mean_predicted: f64,
+    /// sqrt(mean over repetitions of (predicted − observed)²).
+    pub rmse: f64,
+    /// Mean over repetitions of |predicted − observed|.
+    pub mae: f64,
+}
+
+/// The per-unit summary of unit `unit` over the repetitions of `outcome`.
+pub fn unit_summary(data: &Dataset, outcome: &RunOutcome, unit: usize) -> UnitSummary {
+    let observed = data.target[unit];
+    let count = outcome.repetitions.len() as f64;
+    let (mut sum, mut squares, mut absolute) = (0.0, 0.0, 0.0);
+    for repetition in &outcome.repetitions {
+        let predicted = repetition.predicted[unit];
+        sum += predicted;
+        squares += (predicted - observed).powi(2);
+        absolute += (predicted - observed).abs();
+    }
+    UnitSummary {
+        mean_predicted: sum / count,
+        rmse: (squares / count).sqrt(),
+        mae: absolute / count,
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::core::folds::grid::GridParams;
-    use crate::core::folds::random::RandomParams;
+    use crate::core::folds::grid::{Grid, GridParams};
+    use crate::core::folds::random::Random;
     use crate::core::models::ols::Ols;
-    use crate::core::testing::points_dataset;
+    use crate::core::testing::{points_dataset, Points};
     use approx::assert_relative_eq;
 
     fn lattice() -> Dataset {
@@ -313,65 +327,101 @@ mod tests {
         )
     }
 
+    fn run(
+        data: &Dataset,
+        scheme: &dyn FoldScheme,
+        repeats: u32,
+        seed: u64,
+    ) -> Result<RunOutcome, Error> {
+        let points = Points::new(data.points.clone());
+        let plan = Plan {
+            scheme,
+            model: &Ols,
+            repeats,
+            seed,
+            exclusion_radius: None,
+        };
+        let sets = assign_folds(&points.input(), &plan)?;
+        fit_and_score(data, &plan, sets)
+    }
+
     #[test]
     fn every_unit_is_held_out_once_per_repetition() {
-        let dataset = lattice();
-        let plan = Plan {
-            scheme: SchemeSpec::Random(RandomParams { folds: 5 }),
-            repeats: 3,
-            seed: 1,
-        };
-        let outcome = cross_validate(&dataset, &plan, &Ols).unwrap();
+        let data = lattice();
+        let outcome = run(&data, &Random::new(5).unwrap(), 3, 1).unwrap();
         assert_eq!(outcome.repetitions.len(), 3);
-        assert_eq!(outcome.fold_scores.len(), 15);
         for repetition in &outcome.repetitions {
             assert!(repetition.predicted.iter().all(|v| v.is_finite()));
-        }
-        for score in &outcome.fold_scores {
-            assert_eq!(score.n_train + score.n_test, 400);
+            assert_eq!(repetition.fold_results.len(), 5);
+            for fold in &repetition.fold_results {
+                assert_eq!(fold.n_train + fold.n_test, 400);
+            }
         }
         assert_eq!(outcome.pooled.n, 1200);
+        assert!(outcome.repeat_spread.is_some());
+        assert_eq!(outcome.baseline.n, 1200);
     }
 
     #[test]
     fn a_linear_field_is_predicted_exactly_except_for_y() {
         // target = x + y, feature = x: the held-out residual is y minus the
         // training mean of y, so pooled bias is small and R² is about 1 - var(y)/var(x+y) = 0.5.
-        let dataset = lattice();
-        let plan = Plan {
-            scheme: SchemeSpec::Grid(GridParams {
-                block_size: 5.0,
-                origin: [0.0, 0.0],
-                folds: 4,
-            }),
-            repeats: 1,
-            seed: 3,
-        };
-        let outcome = cross_validate(&dataset, &plan, &Ols).unwrap();
-        let r2 = outcome.pooled.r2.unwrap();
+        let data = lattice();
+        let grid = Grid::new(GridParams {
+            block_size: 5.0,
+            grid_origin: [0.0, 0.0],
+            folds: 4,
+        })
+        .unwrap();
+        let outcome = run(&data, &grid, 1, 3).unwrap();
+        let r2 = outcome.pooled.get("r2").unwrap();
         assert!(r2 > 0.3 && r2 < 0.6, "r2 = {r2}");
-        let first = outcome.unit_errors[0];
-        assert_relative_eq!(first.mean_residual, first.observed - first.mean_predicted);
-        assert_relative_eq!(first.rmse, first.mean_residual.abs(), epsilon = 1e-12);
+        // The model beats the training mean, which ignores x.
+        assert!(outcome.pooled.get("rmse").unwrap() < outcome.baseline.get("rmse").unwrap());
+        let summary = unit_summary(&data, &outcome, 0);
+        assert_relative_eq!(summary.rmse, summary.mae, epsilon = 1e-12);
     }
 
     #[test]
-    fn a_fold_without_enough_training_units_names_the_fold() {
-        let dataset = points_dataset(&[[0.0, 0.0], [1.0, 5.0], [2.0, 1.0]]);
-        let plan = Plan {
-            scheme: SchemeSpec::Random(RandomParams { folds: 3 }),
-            repeats: 1,
-            seed: 1,
-        };
+    fn a_fold_that_cannot_be_fitted_names_the_fold_and_the_feature() {
+        let data = points_dataset(&[[0.0, 0.0], [1.0, 5.0], [2.0, 1.0]]);
         // Each training set has 2 units: enough for intercept + 1 feature.
-        assert!(cross_validate(&dataset, &plan, &Ols).is_ok());
-        let dataset = points_dataset(&[[0.0, 0.0], [0.0, 5.0], [2.0, 1.0]]);
+        assert!(run(&data, &Random::new(3).unwrap(), 1, 1).is_ok());
+        let data = points_dataset(&[[0.0, 0.0], [0.0, 5.0], [2.0, 1.0]]);
         // Feature x is constant on the training units of the fold holding out unit 3.
-        let error = cross_validate(&dataset, &plan, &Ols).unwrap_err();
-        let text = error.to_string();
+        let text = run(&data, &Random::new(3).unwrap(), 1, 1)
+            .unwrap_err()
+            .to_string();
         assert!(
             text.starts_with("cannot fit fold") && text.contains("feature x is constant"),
             "{text}"
         );
+    }
+
+    #[test]
+    fn the_baseline_is_the_training_mean() {
+        // Two folds of two units each; hand computation: fold 0 = units {0, 2}
+        // or another pair; whichever, each held-out unit's baseline is the mean
+        // of the other fold's two targets.
+        let data = points_dataset(&[[0.0, 0.0], [1.0, 0.0], [0.0, 3.0], [2.0, 2.0]]);
+        let points = Points::new(data.points.clone());
+        let plan = Plan {
+            scheme: &Random::new(2).unwrap(),
+            model: &Ols,
+            repeats: 1,
+            seed: 4,
+            exclusion_radius: None,
+        };
+        let sets = assign_folds(&points.input(), &plan).unwrap();
+        let folds = sets[0].clone();
+        let test = folds.test_units();
+        let means = training_means(&data, &folds, &test);
+        for (fold, units) in test.iter().enumerate() {
+            let other: Vec<f64> = (0..4)
+                .filter(|i| !units.contains(&(*i as u32)))
+                .map(|i| data.target[i])
+                .collect();
+            assert_relative_eq!(means[fold], other.iter().sum::<f64>() / other.len() as f64);
+        }
     }
 }

@@ -5,132 +5,144 @@
 //!
 //! - [`blob`]: the GeoPackageBinary header and the WKB walk that checks it.
 //! - [`schema`]: the required tables, SRS rows, table registration, the R-tree
-//!   index and its SQL functions, and the results tables.
+//!   index and its SQL functions.
+//! - [`tables`]: the results tables, from their one definition, and their upgrades.
+//! - `container`: new files under a temporary name, crash recovery, the job lock.
 //! - `rtree`: Sort-Tile-Recursive packing of a new R-tree index.
 //! - `read`: [`GpkgSource`].
-//! - `write`: [`GpkgStore`] and [`write_demo`].
-//! - [`export`]: one run's results from PostGIS into a GeoPackage.
+//! - `store`: [`GpkgStore`]; `rows`: writing result rows and the job's layers.
 //!
 //! # Results in a GeoPackage
-//! The results use the table names and columns of the PostGIS results schema
-//! (`runs`, `fold_members`, `predictions`, `unit_errors`, `fold_scores`,
-//! `run_scores`, `blocks`, plus `schema_version` and `store_settings`). The
-//! attribute tables get an integer `fid` key where the PostGIS key is not one
-//! integer (the GeoPackage requires one); `blocks` is a feature layer.
+//! The results use the table and view names and columns of the PostGIS
+//! results schema ([`crate::results`]). Attribute tables get an integer `fid`
+//! key (the GeoPackage requires one) and keep the PostGIS key as a UNIQUE
+//! constraint; `fold_regions` is a feature layer whose geometries carry SRS
+//! -1 ("undefined Cartesian"), because one GeoPackage layer holds one SRS
+//! while a file holds the runs of jobs in several; each row's own SRID is in
+//! its `srid` column.
 //!
-//! Each job also gets two feature layers for a map user: `<job>`, the
-//! per-unit errors of the job's latest successful primary run joined to the
-//! unit geometry (key `fid`, which is `unit_errors.unit_key`), and
-//! `<job>_blocks`, that run's blocks of repetition 1 (key `block_key`). In
-//! PostGIS these are views; here they are tables rewritten on each successful
-//! run of the job, because a GeoPackage view cannot carry an R-tree index
-//! (the index triggers and virtual table need a real table) and GIS software
-//! would scan the whole join on every pan. Earlier runs stay in the attribute
-//! tables and in `blocks`. A job label that would replace a layer geofold did
-//! not make for that job (the source layer, say) is refused.
+//! Each job also gets feature layers for a map user: `<job>`, the per-unit
+//! errors of the job's latest successful primary run joined to the unit
+//! geometry (key `fid`), and `<job>_regions`, that run's fold regions of
+//! repetition 1 in the job's SRS (key `region_id`), when its scheme has
+//! regions. In PostGIS these are views; here they are tables rewritten on
+//! each successful run of the job, because a GeoPackage view cannot carry an
+//! R-tree index and GIS software would scan the whole join on every pan. A
+//! job label that would replace a layer geofold did not make for that job
+//! (the source layer, say) is refused.
 //!
 //! # Files, transactions and locks
 //! A new file is built under a temporary name in the same directory and
-//! renamed into place once complete (so a failure leaves no file). Writing
-//! into an existing file is one SQLite transaction (`BEGIN IMMEDIATE`, the
-//! default rollback journal, which unlike WAL also works on network shares):
-//! a failure leaves the file as it was. Another program's lock is waited for
-//! [`BUSY_TIMEOUT`], then reported with exit code 75.
+//! renamed into place once the run succeeded (so a failure leaves no file).
+//! Writing into an existing file is one SQLite transaction (`BEGIN
+//! IMMEDIATE`, the default rollback journal, which unlike WAL also works on
+//! network shares): a failure leaves the file as it was. Another program's
+//! lock is waited for (5 s for a source, `--lock-timeout` for results), then
+//! reported with exit code 75.
 
 pub mod blob;
-pub mod export;
+pub(crate) mod container;
+pub mod import;
 mod read;
+mod rows;
 mod rtree;
 pub mod schema;
-mod write;
+mod store;
+pub mod tables;
 
 use std::fs;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::time::Duration;
 
 use rusqlite::{Connection, ErrorCode, OpenFlags};
 
 pub use read::GpkgSource;
-pub use write::{write_demo, GpkgStore};
+pub use store::GpkgStore;
 
-use crate::error::{exit, Error};
+use crate::error::{Error, FileProblem};
 
-/// How long geofold waits for another program's lock on a GeoPackage.
+/// How long geofold waits for another program's lock on a GeoPackage it
+/// reads; a results file waits `--lock-timeout` instead.
 pub const BUSY_TIMEOUT: Duration = Duration::from_secs(5);
 
 /// SQLite quotes identifiers with double quotes, as PostgreSQL does (SQL
-/// standard), so the PostGIS adapter's quoting serves both.
-pub(crate) use crate::adapters::postgis::quote_ident as quote;
+/// standard), so one quoting serves both.
+pub(crate) use crate::adapters::sql::quote_ident as quote;
 
 /// A file error at `path`.
-pub(crate) fn file_error(path: &Path, problem: impl Into<String>, code: i32) -> Error {
+pub(crate) fn file_error(path: &Path, problem: impl Into<String>, kind: FileProblem) -> Error {
     Error::File {
         path: path.display().to_string(),
         problem: problem.into(),
-        code,
+        kind,
     }
 }
 
 /// Maps an SQLite error met while doing `action` on `path` to an [`Error`]
-/// with the exit code that fits.
-pub(crate) fn sqlite_error(path: &Path, action: &str, error: &rusqlite::Error) -> Error {
-    let (code, what) = match error.sqlite_error_code() {
+/// of the kind that fits.
+pub fn sqlite_error(path: &Path, action: &str, error: &rusqlite::Error) -> Error {
+    let (kind, what) = match error.sqlite_error_code() {
         Some(ErrorCode::DatabaseBusy | ErrorCode::DatabaseLocked) => (
-            exit::TEMPFAIL,
-            format!(
-                "the file is locked by another program (waited {} s); nothing was written; try again when it is free",
-                BUSY_TIMEOUT.as_secs()
-            ),
+            FileProblem::Locked,
+            "the file is locked by another program (geofold waited --lock-timeout); nothing was written; \
+             try again when it is free"
+                .to_string(),
         ),
         Some(ErrorCode::NotADatabase) => (
-            exit::DATA,
+            FileProblem::BadContent,
             "not a GeoPackage: the file is not an SQLite database".to_string(),
         ),
         Some(ErrorCode::DatabaseCorrupt) => (
-            exit::DATA,
+            FileProblem::BadContent,
             format!("the SQLite database is corrupt ({error})"),
         ),
         Some(ErrorCode::ReadOnly | ErrorCode::PermissionDenied) => (
-            exit::NO_PERMISSION,
+            FileProblem::Permission,
             format!("no permission to write the file ({error})"),
         ),
-        Some(ErrorCode::CannotOpen) => (exit::CANT_CREATE, format!("cannot open ({error})")),
+        Some(ErrorCode::CannotOpen) => (FileProblem::CannotCreate, format!("cannot open ({error})")),
         Some(
             ErrorCode::DiskFull
             | ErrorCode::SystemIoFailure
             | ErrorCode::TooBig
             | ErrorCode::NoLargeFileSupport,
-        ) => (exit::IO, format!("I/O error ({error})")),
+        ) => (FileProblem::Io, format!("I/O error ({error})")),
         Some(ErrorCode::ConstraintViolation) => (
-            exit::DATA,
+            FileProblem::BadContent,
             format!("the file's contents conflict with what geofold writes ({error})"),
         ),
-        _ => (exit::SOFTWARE, format!("SQLite error ({error})")),
+        _ => (FileProblem::Unexpected, format!("SQLite error ({error})")),
     };
-    file_error(path, format!("{action}: {what}"), code)
+    file_error(path, format!("{action}: {what}"), kind)
 }
 
-/// Opens an existing file; `write` asks for a read-write connection.
+/// Opens an existing file; `write` asks for a read-write connection. A file
+/// left with the journal of an interrupted write is rolled back first.
 ///
 /// Every connection waits [`BUSY_TIMEOUT`] for locks, has geofold's R-tree SQL
 /// functions, and enforces foreign keys.
 ///
 /// # Errors
-/// Exit 66 when the file does not exist, 65 when it is a directory; SQLite errors.
+/// Missing file (66), a directory (65); SQLite errors.
 pub(crate) fn open_file(path: &Path, write: bool) -> Result<Connection, Error> {
     match fs::metadata(path) {
         Err(_) => {
-            return Err(file_error(path, "the file does not exist", exit::NO_INPUT));
+            return Err(file_error(
+                path,
+                "the file does not exist",
+                FileProblem::Missing,
+            ));
         }
         Ok(metadata) if metadata.is_dir() => {
             return Err(file_error(
                 path,
                 "is a directory, not a GeoPackage file",
-                exit::DATA,
+                FileProblem::BadContent,
             ));
         }
         Ok(_) => {}
     }
+    container::recover_hot_journal(path)?;
     let flags = if write {
         OpenFlags::SQLITE_OPEN_READ_WRITE
     } else {
@@ -142,18 +154,8 @@ pub(crate) fn open_file(path: &Path, write: bool) -> Result<Connection, Error> {
     )
 }
 
-/// Opens (creating) a new database file at `path` for writing.
-fn create_file(path: &Path) -> Result<Connection, Error> {
-    connect(
-        path,
-        OpenFlags::SQLITE_OPEN_READ_WRITE
-            | OpenFlags::SQLITE_OPEN_CREATE
-            | OpenFlags::SQLITE_OPEN_NO_MUTEX
-            | OpenFlags::SQLITE_OPEN_URI,
-    )
-}
-
-fn connect(path: &Path, flags: OpenFlags) -> Result<Connection, Error> {
+/// Opens a connection with geofold's settings (see [`open_file`]).
+pub(crate) fn connect(path: &Path, flags: OpenFlags) -> Result<Connection, Error> {
     let conn =
         Connection::open_with_flags(path, flags).map_err(|e| sqlite_error(path, "opening", &e))?;
     let setup = || -> rusqlite::Result<()> {
@@ -189,7 +191,7 @@ pub(crate) fn check_geopackage(conn: &Connection, path: &Path) -> Result<i64, Er
             return Err(file_error(
                 path,
                 format!("not a GeoPackage: the SQLite database has no {table} table"),
-                exit::DATA,
+                FileProblem::BadContent,
             ));
         }
     }
@@ -202,116 +204,4 @@ pub(crate) fn check_geopackage(conn: &Connection, path: &Path) -> Result<i64, Er
         );
     }
     Ok(user_version)
-}
-
-/// The directory a new file at `path` goes into.
-///
-/// # Errors
-/// Exit 73 when it does not exist.
-pub(crate) fn directory_of(path: &Path) -> Result<PathBuf, Error> {
-    let directory = match path.parent() {
-        Some(parent) if !parent.as_os_str().is_empty() => parent.to_path_buf(),
-        _ => PathBuf::from("."),
-    };
-    if !directory.is_dir() {
-        return Err(file_error(
-            path,
-            format!(
-                "cannot create: directory {} does not exist",
-                directory.display()
-            ),
-            exit::CANT_CREATE,
-        ));
-    }
-    Ok(directory)
-}
-
-/// A file being built under a temporary name next to its final path; removed
-/// on drop unless [`NewFile::finish`] renamed it into place.
-pub(crate) struct NewFile {
-    temp: PathBuf,
-    target: PathBuf,
-    finished: bool,
-}
-
-impl NewFile {
-    /// Starts a new file for `target` and opens it.
-    ///
-    /// # Errors
-    /// Exit 73 when the directory does not exist or cannot be written.
-    pub(crate) fn create(target: &Path) -> Result<(NewFile, Connection), Error> {
-        let directory = match target.parent() {
-            Some(parent) if !parent.as_os_str().is_empty() => parent.to_path_buf(),
-            _ => PathBuf::from("."),
-        };
-        if !directory.is_dir() {
-            return Err(file_error(
-                target,
-                format!(
-                    "cannot create: directory {} does not exist",
-                    directory.display()
-                ),
-                exit::CANT_CREATE,
-            ));
-        }
-        let name = target
-            .file_name()
-            .map(|name| name.to_string_lossy().into_owned())
-            .unwrap_or_else(|| "geofold.gpkg".to_string());
-        let temp = directory.join(format!(".{name}.tmp-{}", std::process::id()));
-        let file = NewFile {
-            temp,
-            target: target.to_path_buf(),
-            finished: false,
-        };
-        file.remove_temp();
-        let conn = create_file(&file.temp).map_err(|error| match error {
-            Error::File { problem, .. } => file_error(target, problem, exit::CANT_CREATE),
-            other => other,
-        })?;
-        Ok((file, conn))
-    }
-
-    /// Closes the connection, flushes the file and renames it into place.
-    ///
-    /// # Errors
-    /// Exit 74 when flushing or renaming fails (the temporary file is removed).
-    pub(crate) fn finish(mut self, conn: Connection) -> Result<(), Error> {
-        conn.close()
-            .map_err(|(_, e)| sqlite_error(&self.target, "closing the new file", &e))?;
-        let io = |action: &str, error: std::io::Error| {
-            file_error(&self.target, format!("{action}: {error}"), exit::IO)
-        };
-        fs::File::open(&self.temp)
-            .and_then(|file| file.sync_all())
-            .map_err(|e| io("flushing the new file", e))?;
-        fs::rename(&self.temp, &self.target)
-            .map_err(|e| io("moving the new file into place", e))?;
-        self.finished = true;
-        if let Some(directory) = self.target.parent() {
-            // Make the rename durable; not all file systems allow it, which is harmless.
-            let directory = if directory.as_os_str().is_empty() {
-                Path::new(".")
-            } else {
-                directory
-            };
-            let _ = fs::File::open(directory).and_then(|d| d.sync_all());
-        }
-        Ok(())
-    }
-
-    fn remove_temp(&self) {
-        let _ = fs::remove_file(&self.temp);
-        let mut journal = self.temp.clone().into_os_string();
-        journal.push("-journal");
-        let _ = fs::remove_file(journal);
-    }
-}
-
-impl Drop for NewFile {
-    fn drop(&mut self) {
-        if !self.finished {
-            self.remove_temp();
-        }
-    }
 }

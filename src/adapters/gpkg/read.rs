@@ -13,12 +13,14 @@
 //! layer leaves every file as it was. Good rows go to the collector, each WKB
 //! body decoded with geozero; no geometry is kept.
 //!
-//! # Geographic SRS
-//! An SRS counts as longitude/latitude when its definition is a WKT
-//! `GEOGCS`/`GEOGCRS`, when it is an EPSG geographic 2D code in
-//! [`GEOGRAPHIC_EPSG`], or when it is `srs_id` 0 ("undefined geographic",
-//! clause 1.1.2.1.2). There is no PostGIS here to transform, so the pipeline
-//! refuses block sizes in metres on such a layer and says how to reproject it.
+//! # Kind of SRS
+//! `srs_id` 0 ("undefined geographic") and -1 ("undefined Cartesian"),
+//! clause 1.1.2.1.2, are an undefined CRS: coordinates of no known unit. An
+//! SRS counts as longitude/latitude when its definition is a WKT
+//! `GEOGCS`/`GEOGCRS` or it is an EPSG geographic 2D code in
+//! [`GEOGRAPHIC_EPSG`]. There is no PostGIS here to transform, so the
+//! pipeline refuses distances in metres on such a layer and says how to
+//! reproject it (or, for an undefined CRS, to assign one).
 
 use std::path::{Path, PathBuf};
 
@@ -29,9 +31,11 @@ use rusqlite::{Connection, OptionalExtension, Row};
 
 use super::schema::Srs;
 use super::{blob, check_geopackage, file_error, open_file, quote, sqlite_error};
-use crate::adapters::{missing_columns, wanted_columns, ColumnSpec, Source, SourceInfo};
+use crate::adapters::{
+    resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
+};
 use crate::core::units::{IdKind, RawGeometry, UnitCollector, UnitId};
-use crate::error::{exit, Error, Location};
+use crate::error::{Error, FileProblem, Location};
 
 /// EPSG codes of common geographic 2D CRSs (longitude/latitude in degrees):
 /// WGS 84, ETRS89, NAD83, NAD27, GDA94, GDA2020, NZGD2000, NAD83(CSRS),
@@ -118,7 +122,7 @@ impl GpkgSource {
             return Err(file_error(
                 path,
                 format!("layer {layer} has no row in gpkg_geometry_columns, so it has no geometry column"),
-                exit::DATA,
+                FileProblem::BadContent,
             ));
         };
         let srs = srs_row(&conn, path, srs_id)?.ok_or_else(|| {
@@ -127,7 +131,7 @@ impl GpkgSource {
                 format!(
                     "layer {layer}: unknown SRS id {srs_id}: gpkg_geometry_columns names it but gpkg_spatial_ref_sys has no such srs_id"
                 ),
-                exit::DATA,
+                FileProblem::BadContent,
             )
         })?;
         let table_columns = table_columns(&conn, path, &layer)?;
@@ -149,14 +153,27 @@ impl GpkgSource {
             }
         };
         let geom_column = columns.geom.clone().unwrap_or(registered_geom.clone());
-        let wanted = wanted_columns(&id_column, &geom_column, columns);
-        if let Some(missing) =
-            missing_columns(&wanted, |name| table_columns.iter().any(|c| c.name == name))
-        {
-            return Err(Error::NotFound {
-                what: format!("{missing} in layer {layer} of {}", path.display()),
-            });
-        }
+        let names: Vec<String> = table_columns.iter().map(|c| c.name.clone()).collect();
+        let wanted: Vec<&str> = [
+            id_column.as_str(),
+            geom_column.as_str(),
+            columns.target.as_str(),
+        ]
+        .into_iter()
+        .chain(columns.features.iter().map(String::as_str))
+        .collect();
+        let resolved = resolve_columns(
+            &wanted,
+            &names,
+            NameMatch::Sqlite,
+            &format!("layer {layer} of {}", path.display()),
+        )?;
+        let (id_column, geom_column, target_column) = (
+            resolved[0].clone(),
+            resolved[1].clone(),
+            resolved[2].clone(),
+        );
+        let feature_columns = resolved[3..].to_vec();
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);
         let location = |column: &str| Location {
             table: display.clone(),
@@ -164,7 +181,7 @@ impl GpkgSource {
             row_id: None,
         };
         let mut problems = Vec::new();
-        if geom_column != registered_geom {
+        if !geom_column.eq_ignore_ascii_case(&registered_geom) {
             problems.push((
                 location(&geom_column),
                 format!(
@@ -186,7 +203,7 @@ impl GpkgSource {
             ));
             IdKind::Integer
         };
-        for name in std::iter::once(&columns.target).chain(columns.features.iter()) {
+        for name in std::iter::once(&target_column).chain(feature_columns.iter()) {
             if let Some(column) = find(name) {
                 let declared = base_type(&column.declared);
                 if !INTEGER_TYPES.contains(&declared.as_str())
@@ -205,8 +222,8 @@ impl GpkgSource {
         if !problems.is_empty() {
             return Err(Error::Input { problems });
         }
-        let numbers: Vec<String> = std::iter::once(&columns.target)
-            .chain(columns.features.iter())
+        let numbers: Vec<String> = std::iter::once(&target_column)
+            .chain(feature_columns.iter())
             .map(|name| quote(name))
             .collect();
         let select = format!(
@@ -220,10 +237,10 @@ impl GpkgSource {
             file_error(
                 path,
                 format!("layer {layer}: SRS id {srs_id} is out of range"),
-                exit::DATA,
+                FileProblem::BadContent,
             )
         })?;
-        let geographic = is_geographic(&srs);
+        let crs = crs_kind(&srs);
         let srs_name = if srs.organization.eq_ignore_ascii_case("NONE") {
             srs.name.clone()
         } else {
@@ -233,18 +250,26 @@ impl GpkgSource {
                 srs.organization_id
             )
         };
+        let id_type = match id_kind {
+            IdKind::Integer => "INTEGER",
+            IdKind::Text => "TEXT",
+        }
+        .to_string();
         let info = SourceInfo {
             store: "gpkg",
             table: display,
             qualified_table: layer,
+            file: Some(path.to_path_buf()),
             id_column,
             geom_column,
-            target_column: columns.target.clone(),
-            feature_columns: columns.features.clone(),
+            target_column,
+            feature_columns,
             id_kind,
+            id_type,
             source_srid: srs_id,
             srid: srs_id,
-            geographic,
+            crs,
+            length_unit: crate::adapters::wkb::wkt_length_unit(&srs.definition),
             declared_geometry_type: geometry_type.to_ascii_uppercase(),
             srs_wkt: (!srs.definition.eq_ignore_ascii_case("undefined"))
                 .then(|| srs.definition.clone()),
@@ -588,14 +613,23 @@ fn describe(value: ValueRef<'_>) -> String {
     }
 }
 
-/// Whether an SRS is longitude/latitude (see the module doc).
-fn is_geographic(srs: &Srs) -> bool {
+/// What kind of CRS an SRS is (see the module doc).
+fn crs_kind(srs: &Srs) -> CrsKind {
     let upper = srs.definition.trim_start().to_ascii_uppercase();
-    srs.srs_id == 0
-        || upper.starts_with("GEOGCS[")
+    if srs.srs_id == 0
+        || srs.srs_id == -1
+        || (upper == "UNDEFINED" && srs.organization.eq_ignore_ascii_case("NONE"))
+    {
+        CrsKind::Undefined
+    } else if upper.starts_with("GEOGCS[")
         || upper.starts_with("GEOGCRS[")
         || (srs.organization.eq_ignore_ascii_case("EPSG")
             && GEOGRAPHIC_EPSG.contains(&srs.organization_id))
+    {
+        CrsKind::Geographic
+    } else {
+        CrsKind::Projected
+    }
 }
 
 /// The layer to read: the one named, or the file's only feature layer.
@@ -620,26 +654,30 @@ fn choose_layer(conn: &Connection, path: &Path, layer: Option<&str>) -> Result<S
         format!("its feature layers are {}", features.join(", "))
     };
     match layer {
-        Some(name) => match contents.iter().find(|(table, _)| table == name) {
-            Some((_, kind)) if kind == "features" => Ok(name.to_string()),
+        Some(name) => match contents
+            .iter()
+            .find(|(table, _)| table.eq_ignore_ascii_case(name))
+        {
+            Some((table, kind)) if kind == "features" => Ok(table.clone()),
             Some((_, kind)) => Err(file_error(
                 path,
                 format!("layer {name} is a {kind} table, not a feature layer; {list}"),
-                exit::NO_INPUT,
+                FileProblem::Missing,
             )),
             None => {
                 let unregistered = super::schema::has_table(conn, "main", name).map_err(error)?;
                 let problem = if unregistered {
                     format!("table {name} is not registered in gpkg_contents, so it is not a layer; {list}")
                 } else {
-                    format!("no layer {name}; {list}")
+                    let names: Vec<String> = features.iter().map(|f| f.to_string()).collect();
+                    format!("no layer {name}{}; {list}", suggest(name, &names))
                 };
-                Err(file_error(path, problem, exit::NO_INPUT))
+                Err(file_error(path, problem, FileProblem::Missing))
             }
         },
         None => match features.as_slice() {
             [only] => Ok(only.to_string()),
-            [] => Err(file_error(path, list, exit::NO_INPUT)),
+            [] => Err(file_error(path, list, FileProblem::Missing)),
             _ => Err(Error::Usage(format!(
                 "{} has several feature layers ({}); name one with --layer",
                 path.display(),
@@ -709,23 +747,36 @@ mod tests {
     #[test]
     fn longitude_latitude_systems_are_recognised() {
         // GeoPackage clause 1.1.2.1.2: srs_id 0 is "undefined geographic", -1 "undefined Cartesian".
-        assert!(is_geographic(&srs(0, "NONE", 0, "undefined")));
-        assert!(!is_geographic(&srs(-1, "NONE", -1, "undefined")));
+        assert_eq!(
+            crs_kind(&srs(0, "NONE", 0, "undefined")),
+            CrsKind::Undefined
+        );
+        assert_eq!(
+            crs_kind(&srs(-1, "NONE", -1, "undefined")),
+            CrsKind::Undefined
+        );
         // WKT1 and WKT2 geographic definitions, whatever the code.
-        assert!(is_geographic(&srs(
-            100_001,
-            "local",
-            1,
-            "GEOGCS[\"WGS 84\",DATUM[\"WGS_1984\"]]"
-        )));
-        assert!(is_geographic(&srs(100_002, "local", 2, " geogcrs[\"x\"]")));
+        assert_eq!(
+            crs_kind(&srs(
+                100_001,
+                "local",
+                1,
+                "GEOGCS[\"WGS 84\",DATUM[\"WGS_1984\"]]"
+            )),
+            CrsKind::Geographic
+        );
+        assert_eq!(
+            crs_kind(&srs(100_002, "local", 2, " geogcrs[\"x\"]")),
+            CrsKind::Geographic
+        );
         // EPSG:4258 (ETRS89) with an undefined definition is still degrees.
-        assert!(is_geographic(&srs(4258, "epsg", 4258, "undefined")));
-        assert!(!is_geographic(&srs(
-            32631,
-            "EPSG",
-            32631,
-            crate::demo::DEMO_SRS_WKT
-        )));
+        assert_eq!(
+            crs_kind(&srs(4258, "epsg", 4258, "undefined")),
+            CrsKind::Geographic
+        );
+        assert_eq!(
+            crs_kind(&srs(32631, "EPSG", 32631, crate::demo::DEMO_SRS_WKT)),
+            CrsKind::Projected
+        );
     }
 }

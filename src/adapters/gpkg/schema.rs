@@ -102,48 +102,6 @@ CREATE TABLE gpkg_extensions (
 /// which GDAL reads; it cannot interpret a row that has only WKT2).
 const WGS84_WKT: &str = "GEOGCS[\"WGS 84\",DATUM[\"WGS_1984\",SPHEROID[\"WGS 84\",6378137,298.257223563,AUTHORITY[\"EPSG\",\"7030\"]],AUTHORITY[\"EPSG\",\"6326\"]],PRIMEM[\"Greenwich\",0,AUTHORITY[\"EPSG\",\"8901\"]],UNIT[\"degree\",0.0174532925199433,AUTHORITY[\"EPSG\",\"9122\"]],AUTHORITY[\"EPSG\",\"4326\"]]";
 
-/// geofold's results tables (without `blocks`, a feature table).
-const RESULTS_DDL: &str = include_str!("results.sql");
-
-/// Version of the results tables (`results.sql`), recorded in `schema_version`.
-pub const RESULTS_VERSION: i64 = 1;
-
-/// The attribute tables of the results and their `gpkg_contents` descriptions.
-const ATTRIBUTE_TABLES: &[(&str, &str)] = &[
-    (
-        "schema_version",
-        "geofold: versions of the results tables applied to this file",
-    ),
-    (
-        "store_settings",
-        "geofold: fixed properties of these results (unit id type, block SRID)",
-    ),
-    (
-        "runs",
-        "geofold: one row per validation run; status running/succeeded/failed",
-    ),
-    (
-        "fold_members",
-        "geofold: the held-out fold of each unit in each repetition (1-based)",
-    ),
-    (
-        "predictions",
-        "geofold: held-out prediction of each unit per repetition (1-based); residual = observed - predicted",
-    ),
-    (
-        "unit_errors",
-        "geofold: per-unit errors over all repetitions: predicted is the mean held-out prediction, residual = observed - predicted, abs_error the mean absolute error, rmse the RMSE over repetitions; unit_key numbers the units of a run 1..n in id order",
-    ),
-    (
-        "fold_scores",
-        "geofold: scores of each fold; bias = mean(predicted - observed); r2 = 1 - SSE/SST around the fold mean",
-    ),
-    (
-        "run_scores",
-        "geofold: rmse/mae/bias/r2 are pooled over all held-out predictions of the run; *_fold_mean and *_fold_sd are the mean and sample SD of the per-fold scores",
-    ),
-];
-
 /// A row of `gpkg_spatial_ref_sys`.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Srs {
@@ -254,61 +212,6 @@ pub fn ensure_srs(conn: &Connection, srs: &Srs) -> rusqlite::Result<()> {
             srs.organization_id,
             srs.definition
         ],
-    )?;
-    Ok(())
-}
-
-/// Creates the results tables (attribute tables registered in
-/// `gpkg_contents`, and the `blocks` feature table) and records the version
-/// and settings. The caller holds the transaction.
-///
-/// # Errors
-/// SQLite errors.
-pub fn create_results(
-    conn: &Connection,
-    unit_id_type: &str,
-    block_srid: i32,
-    triggers: TriggerSet,
-) -> rusqlite::Result<()> {
-    let sqlite_type = match unit_id_type {
-        "text" => "TEXT",
-        _ => "INTEGER",
-    };
-    conn.execute_batch(&RESULTS_DDL.replace("{unit_id_type}", sqlite_type))?;
-    for (table, description) in ATTRIBUTE_TABLES {
-        conn.execute(
-            "INSERT INTO gpkg_contents (table_name, data_type, identifier, description)
-             VALUES (?1, 'attributes', ?1, ?2)",
-            params![table, description],
-        )?;
-    }
-    let blocks = FeatureTable {
-        name: "blocks".into(),
-        key: "block_key".into(),
-        columns: "run_id TEXT NOT NULL REFERENCES runs (run_id) ON DELETE CASCADE,
-             repetition INTEGER NOT NULL,
-             block_col INTEGER NOT NULL,
-             block_row INTEGER NOT NULL,
-             fold INTEGER NOT NULL,
-             n_units INTEGER NOT NULL"
-            .into(),
-        geometry_type: "POLYGON".into(),
-        geometry_not_null: true,
-        srs_id: block_srid,
-        z: 0,
-        m: 0,
-        description: "geofold: grid blocks of block runs with the fold each was dealt to".into(),
-    };
-    create_feature_table(conn, &blocks)?;
-    index_feature_table(conn, &blocks, triggers)?;
-    conn.execute_batch("CREATE INDEX blocks_run_idx ON blocks (run_id, repetition);")?;
-    conn.execute(
-        "INSERT INTO schema_version (version, tool_version) VALUES (?1, ?2)",
-        params![RESULTS_VERSION, env!("CARGO_PKG_VERSION")],
-    )?;
-    conn.execute(
-        "INSERT INTO store_settings (key, value) VALUES ('unit_id_type', ?1), ('block_srid', ?2)",
-        params![unit_id_type, block_srid.to_string()],
     )?;
     Ok(())
 }
@@ -625,14 +528,9 @@ mod tests {
     }
 
     fn square_blob(x: f64, y: f64) -> Vec<u8> {
-        let ring = [
-            [x, y],
-            [x + 1.0, y],
-            [x + 1.0, y + 1.0],
-            [x, y + 1.0],
-            [x, y],
-        ];
-        blob::encode_wkb(-1, &crate::adapters::wkb::polygon(&ring, None)).unwrap()
+        let square = crate::core::geometry::cell_polygon([x, y], 1.0, 0, 0);
+        let shape = geo_types::MultiPolygon::new(vec![square]);
+        blob::encode_wkb(-1, &crate::adapters::wkb::multipolygon(&shape, None)).unwrap()
     }
 
     fn table() -> FeatureTable {

@@ -89,6 +89,43 @@ impl CopyEncoder {
         self.buffer.put_slice(value.as_bytes());
     }
 
+    /// A unit id as a `text` field (integers in decimal, without allocating).
+    pub fn unit_id(&mut self, id: &crate::core::units::UnitId) {
+        match id {
+            crate::core::units::UnitId::Int(value) => {
+                let mut digits = itoa::Buffer::new();
+                self.text(digits.format(*value));
+            }
+            crate::core::units::UnitId::Text(value) => self.text(value),
+        }
+    }
+
+    /// One value of a results row, in the binary form of its column's type
+    /// (`srid` for a geometry value: the EWKB carries it).
+    pub fn value(
+        &mut self,
+        column: &crate::results::Column,
+        value: &crate::results::rows::Value<'_>,
+        srid: i32,
+    ) {
+        use crate::results::rows::Value;
+        use crate::results::ColumnType;
+        match value {
+            Value::Null => self.null(),
+            Value::Uuid(id) => self.uuid(id),
+            Value::Str(text) => self.text(text),
+            Value::Id(id) => self.unit_id(id),
+            Value::Int(number) => match column.ty {
+                ColumnType::BigInt => self.int8(*number),
+                _ => self.int4(*number as i32),
+            },
+            Value::Float(number) => self.float8(*number),
+            Value::Geometry(shape) => {
+                self.raw(&crate::adapters::wkb::multipolygon(shape, Some(srid)))
+            }
+        }
+    }
+
     /// A field already in its binary form (e.g. EWKB for `geometry`).
     pub fn raw(&mut self, bytes: &[u8]) {
         self.buffer.put_i32(bytes.len() as i32);

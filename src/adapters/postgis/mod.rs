@@ -5,14 +5,18 @@
 //! - [`copy`]: the binary COPY format.
 //! - [`read`]: inspecting and streaming the source table.
 //! - [`tls`]: encryption for `sslmode=prefer` and `require`.
-//! - [`write`](mod@write): the results schema, its migrations, and writing runs.
+//! - [`migrate`]: creating and upgrading the results schema.
+//! - [`store`]: the results schema as a result store; [`layers`]: each job's map views;
+//!   [`reads`]: reading stored runs back, row by row.
 
 pub mod connect;
 pub mod copy;
-pub mod load;
+pub mod layers;
+pub mod migrate;
 pub mod read;
+pub mod reads;
+pub mod store;
 pub mod tls;
-pub mod write;
 
 use tokio::runtime::Runtime;
 use tokio_postgres::config::SslMode;
@@ -107,80 +111,94 @@ where
     }
 }
 
-/// Wraps a tokio-postgres error with what geofold was doing and its SQLSTATE.
+/// Wraps a tokio-postgres error with what geofold was doing: a timeout or a
+/// missing privilege becomes its own kind (with what was waited for, or the
+/// grant that is missing); other server errors keep their SQLSTATE; errors
+/// without a server message keep their cause chain.
 pub fn database_error(action: &str, error: &tokio_postgres::Error) -> Error {
     match error.as_db_error() {
-        Some(db) => Error::Database {
-            action: action.to_string(),
-            message: match db.detail() {
+        Some(db) => {
+            let message = match db.detail() {
                 Some(detail) => format!("{} ({detail})", db.message()),
                 None => db.message().to_string(),
-            },
-            sqlstate: Some(db.code().code().to_string()),
-        },
+            };
+            match db.code().code() {
+                "55P03" => Error::Timeout {
+                    action: action.to_string(),
+                    waited: format!(
+                        "{message}: another session holds a lock on what geofold must read or change \
+                         (a GIS with the layer open, a long query or a transaction left open); \
+                         geofold waited --lock-timeout and gave up; try again later"
+                    ),
+                },
+                "57014" => Error::Timeout {
+                    action: action.to_string(),
+                    waited: format!("{message}: the statement ran longer than --statement-timeout"),
+                },
+                "42501" => Error::Permission {
+                    action: action.to_string(),
+                    message: match grant_hint(db.message()) {
+                        Some(hint) => format!("{message}; {hint}"),
+                        None => message,
+                    },
+                },
+                code => Error::Database {
+                    action: action.to_string(),
+                    message,
+                    sqlstate: Some(code.to_string()),
+                },
+            }
+        }
         None => Error::Database {
             action: action.to_string(),
-            message: error.to_string(),
+            message: crate::error::chain(error),
             sqlstate: None,
         },
     }
 }
 
-/// Quotes an identifier for SQL: `"name"` with inner quotes doubled. Every
-/// identifier geofold puts in SQL goes through this.
-pub fn quote_ident(name: &str) -> String {
-    format!("\"{}\"", name.replace('"', "\"\""))
-}
-
-/// Quotes a string literal: `'text'` with inner quotes doubled.
-pub fn quote_literal(text: &str) -> String {
-    format!("'{}'", text.replace('\'', "''"))
-}
-
-/// Splits `schema.table` (either part may be double-quoted) at the first dot
-/// outside quotes; quotes are removed. A name without a dot has no schema.
-pub fn split_qualified(name: &str) -> (Option<String>, String) {
-    let mut in_quotes = false;
-    for (index, c) in name.char_indices() {
-        match c {
-            '"' => in_quotes = !in_quotes,
-            '.' if !in_quotes => {
-                return (Some(unquote(&name[..index])), unquote(&name[index + 1..]));
-            }
-            _ => {}
+/// The grant that cures a PostgreSQL "permission denied for …" message.
+fn grant_hint(message: &str) -> Option<String> {
+    let rest = message.strip_prefix("permission denied for ")?;
+    let (kind, object) = rest.split_once(' ')?;
+    Some(match kind {
+        "table" | "view" | "materialized" => {
+            format!("the role needs GRANT SELECT ON {object} TO <role>")
         }
-    }
-    (None, unquote(name))
+        "schema" => format!(
+            "the role needs GRANT USAGE ON SCHEMA {object} TO <role> (and CREATE on it to write results there; \
+             the simplest is a results schema the role owns: CREATE SCHEMA … AUTHORIZATION <role>)"
+        ),
+        "database" => format!(
+            "creating a schema needs GRANT CREATE ON DATABASE {object} TO <role>, \
+             or create the results schema for the role: CREATE SCHEMA … AUTHORIZATION <role>"
+        ),
+        "function" => format!("the role needs GRANT EXECUTE ON FUNCTION {object} TO <role>"),
+        _ => return None,
+    })
 }
 
-fn unquote(part: &str) -> String {
-    let part = part.trim();
-    if part.len() >= 2 && part.starts_with('"') && part.ends_with('"') {
-        part[1..part.len() - 1].replace("\"\"", "\"")
-    } else {
-        part.to_string()
+impl Session {
+    /// Bounds every wait of this session: `lock_timeout` for locks and
+    /// `statement_timeout` for any statement (PostgreSQL documentation,
+    /// "Client Connection Defaults": set per session, never server-wide).
+    ///
+    /// # Errors
+    /// A database error.
+    pub fn limit_waits(
+        &self,
+        lock_timeout: std::time::Duration,
+        statement_timeout: std::time::Duration,
+    ) -> Result<(), Error> {
+        let sql = format!(
+            "SET lock_timeout = {}; SET statement_timeout = {}",
+            lock_timeout.as_millis().max(1),
+            statement_timeout.as_millis().max(1)
+        );
+        self.runtime
+            .block_on(self.client.batch_execute(&sql))
+            .map_err(|e| database_error("setting the session's timeouts", &e))
     }
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn identifiers_are_quoted_and_split() {
-        assert_eq!(
-            quote_ident("x\"; DROP TABLE y; --"),
-            "\"x\"\"; DROP TABLE y; --\""
-        );
-        assert_eq!(
-            split_qualified("basin.units"),
-            (Some("basin".into()), "units".into())
-        );
-        assert_eq!(
-            split_qualified("\"my.schema\".\"Units\""),
-            (Some("my.schema".into()), "Units".into())
-        );
-        assert_eq!(split_qualified("units"), (None, "units".into()));
-        assert_eq!(quote_literal("it's"), "'it''s'");
-    }
-}
+pub use crate::adapters::sql::{quote_ident, quote_literal, split_qualified};

@@ -12,7 +12,9 @@ use geozero::ToGeo;
 
 use super::copy::{read_float8, read_int8, CopyDecoder};
 use super::{database_error, quote_ident, split_qualified, Session};
-use crate::adapters::{missing_columns, wanted_columns, ColumnSpec, Source, SourceInfo};
+use crate::adapters::{
+    resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
+};
 use crate::core::units::{IdKind, RawGeometry, UnitCollector, UnitId};
 use crate::error::{Error, Location};
 
@@ -33,13 +35,26 @@ struct Column {
     formatted: String,
 }
 
+/// What the distance CRS is, read from `spatial_ref_sys`.
+pub struct SrsFacts {
+    /// Kind of CRS.
+    pub crs: CrsKind,
+    /// `EPSG:N` when known.
+    pub name: Option<String>,
+    /// Its WKT.
+    pub wkt: Option<String>,
+    /// Its length unit, from the WKT.
+    pub length_unit: Option<String>,
+}
+
 impl PostgisSource {
     /// Opens `table` (`schema.table` or `table` on the search path).
     ///
     /// # Errors
-    /// [`Error::NotFound`] for a missing schema, table or column; [`Error::Input`]
-    /// for columns of the wrong type; [`Error::Usage`] for a geographic SRID
-    /// without `--distance-srid` when distances matter.
+    /// [`Error::NotFound`] for a missing schema, table or column (with the
+    /// closest names); [`Error::Input`] for columns of the wrong type or a
+    /// geometry column holding several SRIDs without `--distance-srid`;
+    /// [`Error::Usage`] for a geography column without `--distance-srid`.
     pub fn open(
         session: Session,
         table: &str,
@@ -69,24 +84,7 @@ impl PostgisSource {
             Some(row) => row
                 .try_get(0)
                 .map_err(|e| database_error("looking up the source table", &e))?,
-            None => {
-                let schema_exists = rt
-                    .block_on(
-                        client
-                            .query_opt("SELECT 1 FROM pg_namespace WHERE nspname = $1", &[&schema]),
-                    )
-                    .map_err(|e| database_error("looking up the source schema", &e))?
-                    .is_some();
-                let what = if schema_exists {
-                    format!("table {display} does not exist in {}", session.description)
-                } else {
-                    format!(
-                        "schema {schema} does not exist in {} (table {display})",
-                        session.description
-                    )
-                };
-                return Err(Error::NotFound { what });
-            }
+            None => return Err(missing_table(&session, &schema, &name, &display)?),
         };
         let table_columns: Vec<Column> = rt
             .block_on(client.query(
@@ -97,12 +95,17 @@ impl PostgisSource {
             ))
             .map_err(|e| database_error("listing the source columns", &e))?
             .iter()
-            .map(|row| Column {
-                name: row.get(0),
-                type_name: row.get(1),
-                formatted: row.get(2),
+            .map(|row| {
+                Ok(Column {
+                    name: row.try_get(0)?,
+                    type_name: row.try_get(1)?,
+                    formatted: row.try_get(2)?,
+                })
             })
-            .collect();
+            .collect::<Result<_, tokio_postgres::Error>>()
+            .map_err(|e| database_error("listing the source columns", &e))?;
+        let names: Vec<String> = table_columns.iter().map(|c| c.name.clone()).collect();
+        let where_ = format!("table {display}");
         let id_column = match &columns.id {
             Some(id) => id.clone(),
             None => primary_key(&session, oid)?.ok_or_else(|| {
@@ -112,11 +115,11 @@ impl PostgisSource {
         let geom_column = match &columns.geom {
             Some(geom) => geom.clone(),
             None => {
-                let geometry: Vec<&Column> = table_columns
+                let spatial: Vec<&Column> = table_columns
                     .iter()
-                    .filter(|c| c.type_name == "geometry")
+                    .filter(|c| c.type_name == "geometry" || c.type_name == "geography")
                     .collect();
-                match geometry.as_slice() {
+                match spatial.as_slice() {
                     [only] => only.name.clone(),
                     [] => {
                         return Err(Error::NotFound {
@@ -131,14 +134,21 @@ impl PostgisSource {
                 }
             }
         };
-        let wanted = wanted_columns(&id_column, &geom_column, columns);
-        if let Some(missing) =
-            missing_columns(&wanted, |name| table_columns.iter().any(|c| c.name == name))
-        {
-            return Err(Error::NotFound {
-                what: format!("{missing} in table {display}"),
-            });
-        }
+        let wanted: Vec<&str> = [
+            id_column.as_str(),
+            geom_column.as_str(),
+            columns.target.as_str(),
+        ]
+        .into_iter()
+        .chain(columns.features.iter().map(String::as_str))
+        .collect();
+        let resolved = resolve_columns(&wanted, &names, NameMatch::Postgres, &where_)?;
+        let (id_column, geom_column, target_column) = (
+            resolved[0].clone(),
+            resolved[1].clone(),
+            resolved[2].clone(),
+        );
+        let feature_columns = resolved[3..].to_vec();
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);
         let mut problems = Vec::new();
         let location = |column: &str| Location {
@@ -146,32 +156,40 @@ impl PostgisSource {
             column: Some(column.to_string()),
             row_id: None,
         };
-        let id_type = find(&id_column)
-            .map(|c| c.type_name.clone())
-            .unwrap_or_default();
-        let id_kind = if INTEGER_TYPES.contains(&id_type.as_str()) {
+        let id = find(&id_column).ok_or_else(|| Error::Internal("id column vanished".into()))?;
+        let id_kind = if INTEGER_TYPES.contains(&id.type_name.as_str()) {
             IdKind::Integer
-        } else if TEXT_TYPES.contains(&id_type.as_str()) {
+        } else if TEXT_TYPES.contains(&id.type_name.as_str()) {
             IdKind::Text
         } else {
             problems.push((
                 location(&id_column),
-                format!("id column has type {id_type}; it must be an integer or text type"),
+                format!(
+                    "id column has type {}; it must be an integer or text type",
+                    id.formatted
+                ),
             ));
             IdKind::Integer
         };
+        let id_type = match id.type_name.as_str() {
+            "int2" | "int4" => "integer",
+            "int8" => "bigint",
+            _ => "text",
+        }
+        .to_string();
         let geom =
             find(&geom_column).ok_or_else(|| Error::Internal("geometry column vanished".into()))?;
-        if geom.type_name != "geometry" {
+        let geography = geom.type_name == "geography";
+        if geom.type_name != "geometry" && !geography {
             problems.push((
                 location(&geom_column),
                 format!(
-                    "column has type {}; it must be a PostGIS geometry",
+                    "column has type {}; it must be a PostGIS geometry (or geography, with --distance-srid)",
                     geom.formatted
                 ),
             ));
         }
-        for name in std::iter::once(&columns.target).chain(columns.features.iter()) {
+        for name in std::iter::once(&target_column).chain(feature_columns.iter()) {
             if let Some(column) = find(name) {
                 if !NUMERIC_TYPES.contains(&column.type_name.as_str()) {
                     problems.push((
@@ -184,14 +202,30 @@ impl PostgisSource {
         if !problems.is_empty() {
             return Err(Error::Input { problems });
         }
-        let declared_geometry_type = declared_type(&geom.formatted);
-        let source_srid = column_srid(&session, &schema, &name, &geom_column)?;
-        let (geographic, _, _) = srs_facts(&session, source_srid)?;
-        let srid = distance_srid.unwrap_or(source_srid);
-        let (distance_geographic, srs_name, srs_wkt) = srs_facts(&session, srid)?;
-        if distance_srid.is_some() && distance_geographic {
+        if geography && distance_srid.is_none() {
             return Err(Error::Usage(format!(
-                "--distance-srid {srid} is a longitude/latitude CRS; choose a projected CRS in metres"
+                "{display}.{geom_column} is a geography column (longitude/latitude on the spheroid); \
+                 pass --distance-srid N with a projected CRS in metres, and PostGIS will cast and transform it"
+            )));
+        }
+        let declared_geometry_type = declared_type(&geom.formatted);
+        let source_srid = if geography {
+            declared_srid(&geom.formatted).unwrap_or(4326)
+        } else {
+            column_srid(
+                &session,
+                &schema,
+                &name,
+                &geom_column,
+                &display,
+                distance_srid,
+            )?
+        };
+        let srid = distance_srid.unwrap_or(source_srid);
+        let facts = srs_facts(&session, srid)?;
+        if distance_srid.is_some() && facts.crs != CrsKind::Projected {
+            return Err(Error::Usage(format!(
+                "--distance-srid {srid} is not a projected CRS; choose a projected CRS in metres"
             )));
         }
         let qualified_table = format!("{}.{}", quote_ident(&schema), quote_ident(&name));
@@ -199,12 +233,18 @@ impl PostgisSource {
             IdKind::Integer => format!("{}::int8", quote_ident(&id_column)),
             IdKind::Text => format!("{}::text", quote_ident(&id_column)),
         };
-        let geom_expr = match distance_srid {
-            Some(target) => format!("ST_Transform({}, {target})", quote_ident(&geom_column)),
-            None => quote_ident(&geom_column),
+        let geom_expr = match (distance_srid, geography) {
+            (Some(target), true) => format!(
+                "ST_Transform({}::geometry, {target})",
+                quote_ident(&geom_column)
+            ),
+            (Some(target), false) => {
+                format!("ST_Transform({}, {target})", quote_ident(&geom_column))
+            }
+            (None, _) => quote_ident(&geom_column),
         };
-        let numbers: Vec<String> = std::iter::once(&columns.target)
-            .chain(columns.features.iter())
+        let numbers: Vec<String> = std::iter::once(&target_column)
+            .chain(feature_columns.iter())
             .map(|name| format!("{}::float8", quote_ident(name)))
             .collect();
         let select = format!(
@@ -215,17 +255,20 @@ impl PostgisSource {
             store: "postgis",
             table: display,
             qualified_table,
+            file: None,
             id_column,
             geom_column,
-            target_column: columns.target.clone(),
-            feature_columns: columns.features.clone(),
+            target_column,
+            feature_columns,
             id_kind,
+            id_type,
             source_srid,
             srid,
-            geographic,
+            crs: facts.crs,
+            length_unit: facts.length_unit,
             declared_geometry_type,
-            srs_wkt,
-            srs_name,
+            srs_wkt: facts.wkt,
+            srs_name: facts.name,
         };
         Ok(PostgisSource {
             session,
@@ -233,6 +276,50 @@ impl PostgisSource {
             select,
         })
     }
+}
+
+/// The error for a table that is not there: the schema missing, or the
+/// table, with the closest table names of the schema.
+fn missing_table(
+    session: &Session,
+    schema: &str,
+    name: &str,
+    display: &str,
+) -> Result<Error, Error> {
+    let rt = &session.runtime;
+    let schema_exists = rt
+        .block_on(
+            session
+                .client
+                .query_opt("SELECT 1 FROM pg_namespace WHERE nspname = $1", &[&schema]),
+        )
+        .map_err(|e| database_error("looking up the source schema", &e))?
+        .is_some();
+    if !schema_exists {
+        return Ok(Error::NotFound {
+            what: format!(
+                "schema {schema} does not exist in {} (table {display})",
+                session.description
+            ),
+        });
+    }
+    let tables: Vec<String> = rt
+        .block_on(session.client.query(
+            "SELECT c.relname::text FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace \
+             WHERE n.nspname = $1 AND c.relkind IN ('r', 'v', 'm', 'p', 'f')",
+            &[&schema],
+        ))
+        .map_err(|e| database_error("listing the source schema's tables", &e))?
+        .iter()
+        .filter_map(|row| row.try_get(0).ok())
+        .collect();
+    Ok(Error::NotFound {
+        what: format!(
+            "table {display} does not exist in {}{}",
+            session.description,
+            suggest(name, &tables)
+        ),
+    })
 }
 
 impl Source for PostgisSource {
@@ -309,7 +396,10 @@ fn primary_key(session: &Session, oid: u32) -> Result<Option<String>, Error> {
         ))
         .map_err(|e| database_error("looking up the primary key", &e))?;
     Ok(match rows.as_slice() {
-        [only] => Some(only.get(0)),
+        [only] => Some(
+            only.try_get(0)
+                .map_err(|e| database_error("looking up the primary key", &e))?,
+        ),
         _ => None,
     })
 }
@@ -327,9 +417,23 @@ fn declared_type(formatted: &str) -> String {
     }
 }
 
-/// The SRID of the column: its typmod if it has one, else the SRID of its first
-/// non-NULL value, else 0.
-fn column_srid(session: &Session, schema: &str, table: &str, column: &str) -> Result<i32, Error> {
+/// The SRID of a `geography(Type,SRID)` type modifier.
+fn declared_srid(formatted: &str) -> Option<i32> {
+    let inside = formatted.split_once('(')?.1.trim_end_matches(')');
+    inside.split(',').nth(1)?.trim().parse().ok()
+}
+
+/// The SRID of the column: its type modifier if it has one; else the SRIDs
+/// its rows actually hold, which must be one, unless `--distance-srid`
+/// transforms every row from its own SRID (rows with SRID 0 cannot be).
+fn column_srid(
+    session: &Session,
+    schema: &str,
+    table: &str,
+    column: &str,
+    display: &str,
+    distance_srid: Option<i32>,
+) -> Result<i32, Error> {
     let rt = &session.runtime;
     let registered = rt
         .block_on(session.client.query_opt(
@@ -343,26 +447,63 @@ fn column_srid(session: &Session, schema: &str, table: &str, column: &str) -> Re
         return Ok(registered);
     }
     let sql = format!(
-        "SELECT ST_SRID({c}) FROM {s}.{t} WHERE {c} IS NOT NULL LIMIT 1",
+        "SELECT ST_SRID({c}), count(*) FROM {s}.{t} WHERE {c} IS NOT NULL GROUP BY 1 ORDER BY 2 DESC, 1",
         c = quote_ident(column),
         s = quote_ident(schema),
         t = quote_ident(table)
     );
-    Ok(rt
-        .block_on(session.client.query_opt(sql.as_str(), &[]))
-        .map_err(|e| database_error("reading the geometry SRID", &e))?
-        .and_then(|row| row.try_get::<_, i32>(0).ok())
-        .unwrap_or(0))
+    let counts: Vec<(i32, i64)> = rt
+        .block_on(session.client.query(sql.as_str(), &[]))
+        .map_err(|e| database_error(&format!("reading the SRIDs of {display}.{column}"), &e))?
+        .iter()
+        .filter_map(|row| Some((row.try_get(0).ok()?, row.try_get(1).ok()?)))
+        .collect();
+    let listing = || {
+        counts
+            .iter()
+            .map(|(srid, n)| format!("SRID {srid}: {n} rows"))
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    match (counts.as_slice(), distance_srid) {
+        ([], _) => Ok(0),
+        ([(only, _)], _) => Ok(*only),
+        (_, Some(_)) if counts.iter().any(|(srid, _)| *srid == 0) => Err(Error::input(
+            display,
+            Some(column),
+            None,
+            format!(
+                "the column mixes SRIDs ({}); rows with SRID 0 have no CRS and cannot be transformed: \
+                 give them their CRS with ST_SetSRID",
+                listing()
+            ),
+        )),
+        (_, Some(_)) => Ok(counts[0].0),
+        (_, None) => Err(Error::input(
+            display,
+            Some(column),
+            None,
+            format!(
+                "the column mixes SRIDs ({}); distances need one CRS: pass --distance-srid N to transform every \
+                 row from its own SRID to one projected CRS, or fix the rows with ST_Transform",
+                listing()
+            ),
+        )),
+    }
 }
 
-/// Whether the SRID is longitude/latitude, its name and its WKT, from `spatial_ref_sys`.
-/// SRID 0 (unknown) is treated as projected.
-fn srs_facts(
-    session: &Session,
-    srid: i32,
-) -> Result<(bool, Option<String>, Option<String>), Error> {
+/// What `spatial_ref_sys` says of an SRID. SRID 0 is an undefined CRS.
+///
+/// # Errors
+/// [`Error::Usage`] for an SRID missing from `spatial_ref_sys`.
+pub fn srs_facts(session: &Session, srid: i32) -> Result<SrsFacts, Error> {
     if srid == 0 {
-        return Ok((false, None, None));
+        return Ok(SrsFacts {
+            crs: CrsKind::Undefined,
+            name: None,
+            wkt: None,
+            length_unit: None,
+        });
     }
     let row = session
         .runtime
@@ -376,14 +517,29 @@ fn srs_facts(
             "SRID {srid} is not in spatial_ref_sys"
         )));
     };
-    let srtext: String = row.get(0);
-    let proj4: String = row.get(1);
-    let name: Option<String> = row.get(2);
+    let srtext: String = row
+        .try_get(0)
+        .map_err(|e| database_error("reading spatial_ref_sys", &e))?;
+    let proj4: String = row
+        .try_get(1)
+        .map_err(|e| database_error("reading spatial_ref_sys", &e))?;
+    let name: Option<String> = row
+        .try_get(2)
+        .map_err(|e| database_error("reading spatial_ref_sys", &e))?;
     let upper = srtext.to_ascii_uppercase();
     let geographic = upper.starts_with("GEOGCS[")
         || upper.starts_with("GEOGCRS[")
         || proj4.contains("+proj=longlat");
-    Ok((geographic, name, (!srtext.is_empty()).then_some(srtext)))
+    Ok(SrsFacts {
+        crs: if geographic {
+            CrsKind::Geographic
+        } else {
+            CrsKind::Projected
+        },
+        name,
+        length_unit: crate::adapters::wkb::wkt_length_unit(&srtext),
+        wkt: (!srtext.is_empty()).then_some(srtext),
+    })
 }
 
 #[cfg(test)]
@@ -395,5 +551,7 @@ mod tests {
         assert_eq!(declared_type("geometry(MultiPolygon,3035)"), "MULTIPOLYGON");
         assert_eq!(declared_type("geometry(Point)"), "POINT");
         assert_eq!(declared_type("geometry"), "GEOMETRY");
+        assert_eq!(declared_srid("geography(Point,4326)"), Some(4326));
+        assert_eq!(declared_srid("geography"), None);
     }
 }

@@ -1,77 +1,76 @@
 //! Fold schemes: how units are split into held-out folds.
 //!
-//! Every scheme is a pure function of the dataset (in id order), its parameters
-//! and a seed, so the same rows and options give the same folds on any machine
-//! and for any row order of the source. Randomness comes only from
-//! [`FoldRng`], a ChaCha8 stream whose draws are turned into indices by a
-//! documented rule, never from the thread RNG or hash-map order.
+//! A scheme produces, for each repetition, a [`FoldSet`]: every unit's test
+//! fold (each unit is held out exactly once per repetition), the units
+//! excluded from each fold's training set (none for plain k-fold), and the
+//! fold regions as finished geometry for maps. Every scheme is a pure function
+//! of the units (in id order), its options and a seed, so the same rows and
+//! options give the same folds on any machine and for any row order of the
+//! source. Randomness comes only from [`FoldRng`], a ChaCha8 stream whose draws
+//! are turned into indices by a documented rule, never from the thread RNG or
+//! hash-map order.
 //!
+//! An exclusion buffer (`exclusion-radius`) applies to every scheme:
+//! [`exclude_within`] removes from each fold's training set the units within
+//! the radius of any of its test units (Le Rest et al. 2014; Roberts et al. 2017).
+//!
+//! Schemes, one file each, registered in [`SCHEMES`]:
 //! - [`grid`]: square spatial blocks dealt to folds, balanced by unit count.
 //! - [`random`]: plain k-fold over units, the non-spatial comparison.
 
 pub mod grid;
 pub mod random;
 
+use geo_types::MultiPolygon;
 use rand_chacha::ChaCha8Rng;
 use rand_core::{Rng, SeedableRng};
-use serde::Serialize;
+use serde::de::DeserializeOwned;
 
-use crate::core::units::Dataset;
+use crate::core::neighbours::NeighbourIndex;
+use crate::core::options::{parse_options, Options};
 use crate::error::Error;
 
-/// Which scheme to use and its parameters.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-#[serde(tag = "scheme", rename_all = "lowercase")]
-pub enum SchemeSpec {
-    /// Square blocks over the representative points.
-    Grid(grid::GridParams),
-    /// Plain k-fold over units.
-    Random(random::RandomParams),
-}
-
-impl SchemeSpec {
-    /// The scheme's name as stored in `runs.scheme`.
-    pub fn name(&self) -> &'static str {
-        match self {
-            SchemeSpec::Grid(_) => "grid",
-            SchemeSpec::Random(_) => "random",
-        }
-    }
-
-    /// Number of folds.
-    pub fn folds(&self) -> u32 {
-        match self {
-            SchemeSpec::Grid(params) => params.folds,
-            SchemeSpec::Random(params) => params.folds,
-        }
-    }
-
-    /// Assigns folds for one repetition.
-    ///
-    /// # Errors
-    /// [`Error::Folds`] when the units cannot be split as asked (fewer blocks or
-    /// units than folds, a non-positive block size).
-    pub fn assign(&self, dataset: &Dataset, rng: &mut FoldRng) -> Result<FoldAssignment, Error> {
-        match self {
-            SchemeSpec::Grid(params) => grid::assign(dataset, params, rng),
-            SchemeSpec::Random(params) => random::assign(dataset, params, rng),
-        }
-    }
+/// What a scheme sees of the units.
+pub struct SchemeInput<'a> {
+    /// Representative point of each unit, in id order, in the distance CRS.
+    pub points: &'a [[f64; 2]],
+    /// The neighbour index over `points`.
+    pub index: &'a NeighbourIndex,
 }
 
 /// The folds of one repetition.
 #[derive(Debug, Clone, PartialEq)]
-pub struct FoldAssignment {
+pub struct FoldSet {
     /// Number of folds.
     pub k: u32,
-    /// Fold (0-based) of each unit, in dataset order.
+    /// Test fold (0-based) of each unit, in id order.
     pub fold_of: Vec<u32>,
-    /// The blocks, for block schemes; each lists its fold.
-    pub blocks: Vec<Block>,
+    /// Per fold, the units (ascending) excluded from its training set although
+    /// they are not in its test fold. Empty when no fold excludes anything.
+    pub excluded: Vec<Vec<u32>>,
+    /// The fold regions, for maps.
+    pub regions: Vec<Region>,
+    /// Facts about the split worth reporting (e.g. occupied blocks), by name.
+    pub facts: serde_json::Map<String, serde_json::Value>,
+    /// Plain-words warnings about the split (e.g. blocks so small the split is
+    /// close to random), each stating its rule.
+    pub warnings: Vec<String>,
 }
 
-impl FoldAssignment {
-    /// Number of units in each fold.
+impl FoldSet {
+    /// A fold set with no exclusions, regions, facts or warnings.
+    pub fn plain(k: u32, fold_of: Vec<u32>) -> FoldSet {
+        FoldSet {
+            k,
+            fold_of,
+            excluded: Vec::new(),
+            regions: Vec::new(),
+            facts: serde_json::Map::new(),
+            warnings: Vec::new(),
+        }
+    }
+
+    /// Number of units in each fold's test set.
     pub fn fold_sizes(&self) -> Vec<usize> {
         let mut sizes = vec![0usize; self.k as usize];
         for &fold in &self.fold_of {
@@ -79,19 +78,147 @@ impl FoldAssignment {
         }
         sizes
     }
+
+    /// The units excluded from fold `fold`'s training set.
+    pub fn excluded_from(&self, fold: u32) -> &[u32] {
+        self.excluded
+            .get(fold as usize)
+            .map(Vec::as_slice)
+            .unwrap_or(&[])
+    }
+
+    /// True when some fold excludes units from its training set.
+    pub fn has_exclusions(&self) -> bool {
+        self.excluded.iter().any(|units| !units.is_empty())
+    }
+
+    /// The test units of every fold, each list ascending.
+    pub fn test_units(&self) -> Vec<Vec<u32>> {
+        let mut units = vec![Vec::new(); self.k as usize];
+        for (unit, &fold) in self.fold_of.iter().enumerate() {
+            units[fold as usize].push(unit as u32);
+        }
+        units
+    }
 }
 
-/// One grid block with the fold it was dealt to.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct Block {
-    /// Column index: `floor((x - origin_x) / size)`.
-    pub col: i64,
-    /// Row index: `floor((y - origin_y) / size)`.
-    pub row: i64,
-    /// Fold (0-based).
+/// A region of a fold drawn on maps: a block, a cluster hull, a group's
+/// outline, an exclusion disc.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Region {
+    /// The fold (0-based) whose test units it holds.
     pub fold: u32,
-    /// Units whose representative point falls in the block.
-    pub n_units: usize,
+    /// What it is (`block`, …), as stored in `fold_regions.kind`.
+    pub kind: &'static str,
+    /// A label unique within the fold set (e.g. `block 3,-1`).
+    pub label: String,
+    /// Units inside it.
+    pub units: u32,
+    /// Its outline, in the distance CRS.
+    pub geometry: MultiPolygon<f64>,
+}
+
+/// A fold scheme with its options.
+pub trait FoldScheme: Send + Sync {
+    /// The scheme's name as stored in `runs.scheme`.
+    fn name(&self) -> &'static str;
+    /// Its options as stored in `runs.parameters` (option names as given).
+    fn parameters(&self) -> serde_json::Value;
+    /// True when the scheme needs distances in a metric CRS.
+    fn needs_distances(&self) -> bool;
+    /// True when repetitions draw different folds from the seed.
+    fn randomised(&self) -> bool;
+    /// One line in plain words, with lengths written by `length` (which knows
+    /// the CRS's unit), e.g. `square blocks of 4 km from (0, 0), dealt to 5 folds`.
+    fn describe(&self, length: &dyn Fn(f64) -> String) -> String;
+    /// Assigns the folds of one repetition.
+    ///
+    /// # Errors
+    /// [`Error::Folds`] when the units cannot be split as asked.
+    fn assign(&self, input: &SchemeInput<'_>, rng: &mut FoldRng) -> Result<FoldSet, Error>;
+}
+
+/// A scheme in the registry.
+pub struct SchemeEntry {
+    /// The name users pass to `--scheme`.
+    pub name: &'static str,
+    /// One line for `--help`.
+    pub about: &'static str,
+    /// The option names it takes (long option names, without `--`).
+    pub options: &'static [&'static str],
+    /// Builds it from its options.
+    pub build: fn(&Options) -> Result<Box<dyn FoldScheme>, Error>,
+}
+
+/// Every scheme geofold offers. Adding a scheme is its file and one line here.
+pub const SCHEMES: &[SchemeEntry] = &[grid::ENTRY, random::ENTRY];
+
+/// Builds the scheme `name` from the options given for it.
+///
+/// # Errors
+/// [`Error::Usage`] for an unknown scheme, an option it does not take, or a
+/// bad option value.
+pub fn build_scheme(name: &str, options: &Options) -> Result<Box<dyn FoldScheme>, Error> {
+    let entry = SCHEMES.iter().find(|s| s.name == name).ok_or_else(|| {
+        let names: Vec<&str> = SCHEMES.iter().map(|s| s.name).collect();
+        Error::Usage(format!(
+            "unknown --scheme {name:?}; geofold offers {}",
+            names.join(", ")
+        ))
+    })?;
+    (entry.build)(options)
+}
+
+/// Parses a scheme's options into its parameter struct, refusing options the
+/// scheme does not take (see [`parse_options`]).
+///
+/// # Errors
+/// [`Error::Usage`] naming the option.
+pub fn scheme_params<T: DeserializeOwned>(
+    scheme: &str,
+    accepted: &[&str],
+    options: &Options,
+) -> Result<T, Error> {
+    parse_options(&format!("--scheme {scheme}"), accepted, options)
+}
+
+/// Adds an exclusion buffer to a fold set: for each fold, every unit of
+/// another fold whose point lies at distance ≤ `radius` from the point of any
+/// of the fold's test units is excluded from the fold's training set
+/// (Le Rest, K., Pinaud, D., Monestiez, P., Chadoeuf, J. & Bretagnolle, V.
+/// (2014), Spatial leave-one-out cross-validation for variable selection in
+/// the presence of spatial autocorrelation, *Global Ecology and Biogeography*
+/// 23(7): 811–820; Roberts et al. (2017), *Ecography* 40(8): 913–929).
+/// Exclusions already present are kept. Distances are Euclidean in the
+/// distance CRS; a unit at exactly `radius` is excluded.
+///
+/// # Complexity
+/// O(n·m) for n units with on average m units within the radius.
+pub fn exclude_within(set: &mut FoldSet, input: &SchemeInput<'_>, radius: f64) {
+    let k = set.k as usize;
+    // Collect (fold, unit) pairs, then sort and deduplicate per fold: memory is
+    // proportional to the exclusions, not to folds × units.
+    let mut pairs: Vec<(u32, u32)> = Vec::new();
+    for (unit, &point) in input.points.iter().enumerate() {
+        let fold = set.fold_of[unit];
+        input.index.for_each_within(point, radius, |other| {
+            if set.fold_of[other as usize] != fold {
+                pairs.push((fold, other));
+            }
+        });
+    }
+    pairs.sort_unstable();
+    pairs.dedup();
+    let mut excluded = std::mem::take(&mut set.excluded);
+    excluded.resize(k, Vec::new());
+    for (fold, unit) in pairs {
+        excluded[fold as usize].push(unit);
+    }
+    for units in &mut excluded {
+        units.sort_unstable();
+        units.dedup();
+    }
+    set.excluded = excluded;
 }
 
 /// The random stream of one repetition.
@@ -123,6 +250,12 @@ impl FoldRng {
         }
     }
 
+    /// A uniform number in `[0, 1)`: the top 53 bits of a 64-bit draw, scaled
+    /// by 2⁻⁵³ (the usual conversion; common practice, no source).
+    pub fn unit_interval(&mut self) -> f64 {
+        (self.rng.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
+    }
+
     /// Fisher–Yates shuffle (Durstenfeld's form: swap item `i` with a uniform
     /// index in `0..=i`, for `i` from the end down to 1).
     pub fn shuffle<T>(&mut self, items: &mut [T]) {
@@ -133,6 +266,22 @@ impl FoldRng {
     }
 }
 
+/// Median, smallest and largest of counts (e.g. units per block), for reports.
+pub fn count_summary(counts: &[usize]) -> serde_json::Value {
+    let mut sorted = counts.to_vec();
+    sorted.sort_unstable();
+    let median = match sorted.len() {
+        0 => 0.0,
+        n if n % 2 == 1 => sorted[n / 2] as f64,
+        n => (sorted[n / 2 - 1] + sorted[n / 2]) as f64 / 2.0,
+    };
+    serde_json::json!({
+        "median": median,
+        "min": sorted.first().copied().unwrap_or(0),
+        "max": sorted.last().copied().unwrap_or(0),
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -141,11 +290,11 @@ mod tests {
     fn streams_are_reproducible_and_distinct() {
         let draw = |seed, repetition| {
             let mut rng = FoldRng::new(seed, repetition);
-            (0..8).map(|_| rng.index_below(1000)).collect::<Vec<_>>()
+            (0..5).map(|_| rng.index_below(1000)).collect::<Vec<_>>()
         };
-        assert_eq!(draw(7, 0), draw(7, 0));
-        assert_ne!(draw(7, 0), draw(7, 1));
-        assert_ne!(draw(7, 0), draw(8, 0));
+        assert_eq!(draw(1, 0), draw(1, 0));
+        assert_ne!(draw(1, 0), draw(1, 1));
+        assert_ne!(draw(1, 0), draw(2, 0));
     }
 
     #[test]
@@ -160,18 +309,45 @@ mod tests {
     }
 
     #[test]
-    fn index_below_is_roughly_uniform() {
-        // Chi-square over 10 cells, 100 000 draws; 27.88 is the 0.999 quantile
-        // of chi-square with 9 degrees of freedom (standard statistical tables).
-        let mut rng = FoldRng::new(42, 3);
-        let mut counts = [0f64; 10];
+    fn draws_are_uniform() {
+        // Chi-square goodness of fit on 10 cells, 100,000 draws: the 0.999
+        // quantile of chi-square with 9 degrees of freedom is 27.88 (standard
+        // statistical tables, e.g. NIST/SEMATECH e-Handbook of Statistical
+        // Methods, table 1.3.6.7.4).
+        let mut rng = FoldRng::new(42, 0);
+        let mut cells = [0u32; 10];
         for _ in 0..100_000 {
-            counts[rng.index_below(10)] += 1.0;
+            cells[rng.index_below(10)] += 1;
         }
-        let chi2: f64 = counts
+        let expected = 10_000.0;
+        let chi2: f64 = cells
             .iter()
-            .map(|c| (c - 10_000.0).powi(2) / 10_000.0)
+            .map(|&c| (f64::from(c) - expected).powi(2) / expected)
             .sum();
-        assert!(chi2 < 27.88, "chi2 = {chi2}");
+        assert!(chi2 < 27.88, "chi-square {chi2}, cells {cells:?}");
+        let mut rng = FoldRng::new(42, 1);
+        let mean = (0..100_000).map(|_| rng.unit_interval()).sum::<f64>() / 100_000.0;
+        // Mean of U(0,1) is 1/2, SD of the mean sqrt(1/12/1e5) = 0.00091.
+        assert!((mean - 0.5).abs() < 0.004, "{mean}");
+    }
+
+    #[test]
+    fn a_buffer_excludes_exactly_the_units_within_the_radius_of_a_test_unit() {
+        // Six points on a line 1 apart; folds 0,0,1,1,2,2. With radius 1 fold 0
+        // (points 0 and 1) excludes point 2; fold 1 excludes points 1 and 4;
+        // fold 2 excludes point 3. Hand computation.
+        let points: Vec<[f64; 2]> = (0..6).map(|i| [f64::from(i), 0.0]).collect();
+        let index = NeighbourIndex::new(&points);
+        let input = SchemeInput {
+            points: &points,
+            index: &index,
+        };
+        let mut set = FoldSet::plain(3, vec![0, 0, 1, 1, 2, 2]);
+        exclude_within(&mut set, &input, 1.0);
+        assert_eq!(set.excluded, vec![vec![2], vec![1, 4], vec![3]]);
+        assert!(set.has_exclusions());
+        let mut none = FoldSet::plain(3, vec![0, 0, 1, 1, 2, 2]);
+        exclude_within(&mut none, &input, 0.5);
+        assert!(!none.has_exclusions());
     }
 }

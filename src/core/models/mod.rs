@@ -1,72 +1,201 @@
 //! Model families fitted per fold.
 //!
 //! A family implements [`Model`]: it fits on the training units of a fold and
-//! returns a [`Predictor`] for the held-out ones. Failures are plain messages
-//! naming the features at fault; the pipeline adds the fold and repetition.
+//! returns a [`Fitted`] model that predicts a held-out unit from a
+//! [`UnitView`]: its features, its representative point and, for count models,
+//! its exposure. A family declares its [`Family`], which decides its scores.
+//! Failures are typed ([`FitError`]); the pipeline adds fold and repetition.
 //!
+//! Families, one file each, registered in [`MODELS`]:
 //! - [`ols`]: ordinary least squares with intercept, by Householder QR.
+//!
+//! [`linear`] holds the least-squares machinery the linear families share:
+//! per-fold triangular factors merged across folds (TSQR), so a k-fold run
+//! costs one pass over the data rather than one per fold.
 
+pub mod linear;
 pub mod ols;
 
-use std::str::FromStr;
+use std::fmt;
 
+use crate::core::folds::FoldSet;
+use crate::core::metrics::Family;
+use crate::core::options::{parse_options, Options};
 use crate::core::units::Dataset;
 use crate::error::Error;
 
-/// The training units of one fold: indices into a dataset.
+/// What a fitted model sees of one unit.
+#[derive(Debug, Clone, Copy)]
+pub struct UnitView<'a> {
+    /// Feature values, in the dataset's feature order.
+    pub features: &'a [f64],
+    /// Representative point in the distance CRS.
+    pub point: [f64; 2],
+}
+
+impl Dataset {
+    /// The view of unit `i` a fitted model predicts from.
+    pub fn view(&self, i: usize) -> UnitView<'_> {
+        UnitView {
+            features: self.features_of(i),
+            point: self.points[i],
+        }
+    }
+}
+
+/// The training units of one fold: indices into a dataset, ascending.
 pub struct TrainingSet<'a> {
     /// All units.
-    pub dataset: &'a Dataset,
+    pub data: &'a Dataset,
     /// The indices of the training units, ascending.
-    pub rows: &'a [usize],
+    pub rows: &'a [u32],
 }
 
 /// A fitted model.
-pub trait Predictor {
-    /// The prediction for one unit's feature values (in the dataset's feature order).
-    fn predict(&self, features: &[f64]) -> f64;
+pub trait Fitted: Send + Sync {
+    /// The prediction for one unit.
+    fn predict(&self, unit: &UnitView<'_>) -> f64;
+    /// The fitted terms and their estimates (intercept first), for the
+    /// coefficients table; empty for models without coefficients.
+    fn coefficients(&self) -> Vec<(String, f64)> {
+        Vec::new()
+    }
 }
 
-/// A model family.
-pub trait Model: Sync {
-    /// Name stored in `runs.parameters`.
+/// Why a fold could not be fitted. Messages name the features involved.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FitError {
+    /// Fewer training units than the model needs.
+    TooFewUnits {
+        /// Training units available.
+        have: usize,
+        /// Units needed.
+        need: usize,
+        /// What needs them, e.g. `ols with 3 features (a, b, c)`.
+        what: String,
+    },
+    /// A feature takes one value on every training unit.
+    Constant {
+        /// The feature.
+        feature: String,
+        /// Its value.
+        value: f64,
+    },
+    /// A term is a linear combination of the terms before it.
+    Collinear {
+        /// The term.
+        term: String,
+        /// The terms before it.
+        earlier: Vec<String>,
+        /// All features of the model.
+        features: Vec<String>,
+    },
+    /// A term is zero or not finite on every training unit.
+    NotFinite {
+        /// The term.
+        term: String,
+    },
+}
+
+impl fmt::Display for FitError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            FitError::TooFewUnits { have, need, what } => write!(
+                f,
+                "{have} training units, but {what} needs at least {need}"
+            ),
+            FitError::Constant { feature, value } => write!(
+                f,
+                "feature {feature} is constant ({value}) on the training units, so it is collinear with the intercept"
+            ),
+            FitError::Collinear {
+                term,
+                earlier,
+                features,
+            } => write!(
+                f,
+                "rank-deficient training design: {term} is a linear combination of {} (features: {})",
+                earlier.join(", "),
+                features.join(", ")
+            ),
+            FitError::NotFinite { term } => {
+                write!(f, "{term} is zero or not finite on the training units")
+            }
+        }
+    }
+}
+
+impl std::error::Error for FitError {}
+
+/// A model family with its options.
+pub trait Model: Send + Sync {
+    /// The family's name as stored in `runs.model`.
     fn name(&self) -> &'static str;
-    /// Parameters stored in `runs.parameters`.
+    /// What kind of target it predicts, which decides its scores.
+    fn family(&self) -> Family;
+    /// Its options as stored in `runs.parameters`.
     fn parameters(&self) -> serde_json::Value;
+    /// One line in plain words, e.g. `ordinary least squares with intercept`.
+    fn describe(&self) -> String;
     /// Fewest training units the family needs with `n_features` features.
     fn min_training_units(&self, n_features: usize) -> usize;
     /// Fits on the training units.
     ///
     /// # Errors
-    /// A message naming the features involved when the design cannot be fitted.
-    fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Predictor>, String>;
-}
-
-/// The model families geofold offers, as named on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum ModelKind {
-    /// Ordinary least squares with intercept.
-    Ols,
-}
-
-impl FromStr for ModelKind {
-    type Err = Error;
-
-    fn from_str(text: &str) -> Result<Self, Self::Err> {
-        match text {
-            "ols" => Ok(ModelKind::Ols),
-            other => Err(Error::Usage(format!(
-                "unknown --model {other:?}; available: ols"
-            ))),
-        }
+    /// [`FitError`] naming the features involved.
+    fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError>;
+    /// Fits every fold of a fold set at once when the family can share work
+    /// across folds (one result per fold, in fold order); `None` to have the
+    /// caller fit fold by fold with [`fit`](Model::fit).
+    fn fit_folds(
+        &self,
+        _data: &Dataset,
+        _folds: &FoldSet,
+    ) -> Option<Vec<Result<Box<dyn Fitted>, FitError>>> {
+        None
     }
 }
 
-impl ModelKind {
-    /// The family object.
-    pub fn build(self) -> Box<dyn Model> {
-        match self {
-            ModelKind::Ols => Box::new(ols::Ols),
-        }
-    }
+/// A model family in the registry.
+pub struct ModelEntry {
+    /// The name users pass to `--model`.
+    pub name: &'static str,
+    /// One line for `--help`.
+    pub about: &'static str,
+    /// The option names it takes (long option names, without `--`).
+    pub options: &'static [&'static str],
+    /// Builds it from its options.
+    pub build: fn(&Options) -> Result<Box<dyn Model>, Error>,
+}
+
+/// Every model family geofold offers. Adding one is its file and a line here.
+pub const MODELS: &[ModelEntry] = &[ols::ENTRY];
+
+/// Builds the model `name` from the options given for it.
+///
+/// # Errors
+/// [`Error::Usage`] for an unknown model, an option it does not take, or a
+/// bad option value.
+pub fn build_model(name: &str, options: &Options) -> Result<Box<dyn Model>, Error> {
+    let entry = MODELS.iter().find(|m| m.name == name).ok_or_else(|| {
+        let names: Vec<&str> = MODELS.iter().map(|m| m.name).collect();
+        Error::Usage(format!(
+            "unknown --model {name:?}; geofold offers {}",
+            names.join(", ")
+        ))
+    })?;
+    (entry.build)(options)
+}
+
+/// Parses a model's options into its parameter struct, refusing options the
+/// model does not take.
+///
+/// # Errors
+/// [`Error::Usage`] naming the option.
+pub fn model_params<T: serde::de::DeserializeOwned>(
+    model: &str,
+    accepted: &[&str],
+    options: &Options,
+) -> Result<T, Error> {
+    parse_options(&format!("--model {model}"), accepted, options)
 }

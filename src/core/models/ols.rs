@@ -17,9 +17,36 @@
 //! # Complexity
 //! O(n p²) time and O(n p) memory for n units and p coefficients.
 
-use nalgebra::{DMatrix, DVector};
+use std::sync::Arc;
 
-use super::{Model, Predictor, TrainingSet};
+use nalgebra::{DMatrix, DVector};
+use serde::{Deserialize, Serialize};
+
+use super::linear::{self, LinearFit, Standardise, Triangle};
+use super::{model_params, FitError, Fitted, Model, ModelEntry, TrainingSet};
+use crate::core::folds::FoldSet;
+use crate::core::metrics::Family;
+use crate::core::options::Options;
+use crate::core::units::Dataset;
+use crate::error::Error;
+
+/// The registry entry.
+pub const ENTRY: ModelEntry = ModelEntry {
+    name: "ols",
+    about: "ordinary least squares with intercept",
+    options: &[],
+    build,
+};
+
+/// Options of OLS: none.
+#[derive(Debug, Clone, Default, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case", deny_unknown_fields)]
+pub struct OlsParams {}
+
+fn build(options: &Options) -> Result<Box<dyn Model>, Error> {
+    let _: OlsParams = model_params("ols", ENTRY.options, options)?;
+    Ok(Box::new(Ols))
+}
 
 /// The OLS family.
 pub struct Ols;
@@ -37,49 +64,45 @@ pub struct OlsFit {
     pub r_squared: f64,
 }
 
-impl Predictor for OlsFit {
-    fn predict(&self, features: &[f64]) -> f64 {
-        predict(&self.coefficients, features)
-    }
-}
-
 impl Model for Ols {
     fn name(&self) -> &'static str {
         "ols"
     }
 
+    fn family(&self) -> Family {
+        Family::Regression
+    }
+
     fn parameters(&self) -> serde_json::Value {
-        serde_json::json!({ "model": "ols", "intercept": true, "solver": "householder_qr" })
+        serde_json::json!({ "intercept": true, "solver": "householder_qr" })
+    }
+
+    fn describe(&self) -> String {
+        "ordinary least squares with intercept".to_string()
     }
 
     fn min_training_units(&self, n_features: usize) -> usize {
         n_features + 1
     }
 
-    fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Predictor>, String> {
-        let dataset = training.dataset;
-        let m = dataset.n_features();
-        let n = training.rows.len();
-        let design = DMatrix::from_fn(n, m + 1, |i, j| {
-            if j == 0 {
-                1.0
-            } else {
-                dataset.features[training.rows[i] * m + j - 1]
-            }
-        });
-        let target =
-            DVector::from_iterator(n, training.rows.iter().map(|&row| dataset.target[row]));
-        let solution = solve(design, &target, &dataset.feature_names)?;
-        Ok(Box::new(Coefficients(solution.coefficients)))
+    fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError> {
+        let data = training.data;
+        let standardise = Arc::new(Standardise::of(data));
+        let triangle = Triangle::of_units(data, &standardise, training.rows.iter().copied());
+        let beta = linear::solve(&triangle, &standardise, &data.feature_names)?;
+        Ok(Box::new(LinearFit::new(
+            standardise,
+            Arc::new(data.feature_names.clone()),
+            beta,
+        )))
     }
-}
 
-/// Fitted coefficients, intercept first: the predictor used per fold.
-struct Coefficients(Vec<f64>);
-
-impl Predictor for Coefficients {
-    fn predict(&self, features: &[f64]) -> f64 {
-        predict(&self.0, features)
+    fn fit_folds(
+        &self,
+        data: &Dataset,
+        folds: &FoldSet,
+    ) -> Option<Vec<Result<Box<dyn Fitted>, FitError>>> {
+        Some(linear::fit_folds(data, folds))
     }
 }
 
@@ -106,12 +129,12 @@ struct Solution {
 ///
 /// # Errors
 /// Fewer rows than columns, a constant feature, or a rank-deficient design; the
-/// message names the feature at fault.
+/// error names the feature at fault.
 pub fn fit_ols(
     design: DMatrix<f64>,
     target: DVector<f64>,
     feature_names: &[String],
-) -> Result<OlsFit, String> {
+) -> Result<OlsFit, FitError> {
     let (n, p) = design.shape();
     let original = design.clone();
     let solution = solve(design, &target, feature_names)?;
@@ -131,7 +154,11 @@ pub fn fit_ols(
     let r_inverse = solution
         .r_square
         .solve_upper_triangular(&DMatrix::identity(p, p))
-        .ok_or_else(|| "triangular inverse failed: the design is singular".to_string())?;
+        .ok_or_else(|| FitError::Collinear {
+            term: "the design".into(),
+            earlier: Vec::new(),
+            features: feature_names.to_vec(),
+        })?;
     let standard_errors = (0..p)
         .map(|j| residual_sd * r_inverse.row(j).norm() / solution.scales[j])
         .collect();
@@ -148,43 +175,35 @@ fn solve(
     mut design: DMatrix<f64>,
     target: &DVector<f64>,
     feature_names: &[String],
-) -> Result<Solution, String> {
+) -> Result<Solution, FitError> {
     let (n, p) = design.shape();
-    let name = |j: usize| -> String {
-        if j == 0 {
-            "the intercept".to_string()
-        } else {
-            feature_names
-                .get(j - 1)
-                .map(|s| format!("feature {s}"))
-                .unwrap_or_else(|| format!("column {j}"))
-        }
-    };
+    let name = |j: usize| linear::term_name(feature_names, j);
     if n < p {
-        return Err(format!(
-            "{n} training units but the model has {p} coefficients (intercept and {} features: {}); it needs at least {p}",
-            p - 1,
-            feature_names.join(", ")
-        ));
+        return Err(FitError::TooFewUnits {
+            have: n,
+            need: p,
+            what: format!(
+                "least squares with an intercept and {} features ({})",
+                p - 1,
+                feature_names.join(", ")
+            ),
+        });
     }
     for j in 1..p {
         let column = design.column(j);
         let first = column[0];
         if column.iter().all(|&value| value == first) {
-            return Err(format!(
-                "{} is constant ({first}) on the training units, so it is collinear with the intercept",
-                name(j)
-            ));
+            return Err(FitError::Constant {
+                feature: feature_names.get(j - 1).cloned().unwrap_or_default(),
+                value: first,
+            });
         }
     }
     let mut scales = Vec::with_capacity(p);
     for j in 0..p {
         let norm = design.column(j).norm();
         if norm == 0.0 || !norm.is_finite() {
-            return Err(format!(
-                "{} is zero or not finite on the training units",
-                name(j)
-            ));
+            return Err(FitError::NotFinite { term: name(j) });
         }
         design.column_mut(j).unscale_mut(norm);
         scales.push(norm);
@@ -194,22 +213,25 @@ fn solve(
     let tolerance = (n.max(p) as f64) * 10.0 * f64::EPSILON;
     for j in 0..p {
         if r[(j, j)].abs() <= tolerance {
-            let earlier: Vec<String> = (0..j).map(name).collect();
-            return Err(format!(
-                "rank-deficient training design: {} is a linear combination of {} (features: {})",
-                name(j),
-                earlier.join(", "),
-                feature_names.join(", ")
-            ));
+            return Err(FitError::Collinear {
+                term: name(j),
+                earlier: (0..j).map(name).collect(),
+                features: feature_names.to_vec(),
+            });
         }
     }
     let mut qty = target.clone();
     qr.q_tr_mul(&mut qty);
     let head = qty.rows(0, p).into_owned();
     let r_square = r.view((0, 0), (p, p)).into_owned();
-    let scaled_beta = r_square
-        .solve_upper_triangular(&head)
-        .ok_or_else(|| "triangular solve failed: the design is singular".to_string())?;
+    let scaled_beta =
+        r_square
+            .solve_upper_triangular(&head)
+            .ok_or_else(|| FitError::Collinear {
+                term: "the design".into(),
+                earlier: Vec::new(),
+                features: feature_names.to_vec(),
+            })?;
     let coefficients = (0..p).map(|j| scaled_beta[j] / scales[j]).collect();
     Ok(Solution {
         coefficients,

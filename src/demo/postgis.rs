@@ -5,9 +5,9 @@ use std::pin::pin;
 use futures_util::SinkExt;
 use geozero::{CoordDimensions, ToWkb};
 
-use super::copy::CopyEncoder;
-use super::{database_error, quote_ident, Session};
-use crate::demo::{DemoUnit, DEMO_SRID};
+use super::{DemoUnit, DEMO_SRID};
+use crate::adapters::postgis::copy::CopyEncoder;
+use crate::adapters::postgis::{database_error, quote_ident, Session};
 use crate::error::Error;
 
 /// Replaces `schema.table` with the demo units, in one transaction.

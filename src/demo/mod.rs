@@ -11,6 +11,9 @@
 //! The coordinates are in EPSG:32631 (UTM zone 31N) and lie on open sea just
 //! north of the equator: no real place is depicted.
 
+pub mod gpkg;
+pub mod postgis;
+
 use geo_types::{Coord, LineString, MultiPolygon, Polygon};
 use rand_chacha::ChaCha8Rng;
 use rand_core::{Rng, SeedableRng};
@@ -19,7 +22,7 @@ use rand_core::{Rng, SeedableRng};
 pub const DEMO_SRID: i32 = 32631;
 
 /// WKT (OGC WKT1) of EPSG:32631, as PostGIS 3.3's `spatial_ref_sys.srtext` has it.
-pub const DEMO_SRS_WKT: &str = include_str!("demo_srs_32631.wkt");
+pub const DEMO_SRS_WKT: &str = include_str!("srs_32631.wkt");
 
 /// Seed of the demo generator.
 pub const DEMO_SEED: u64 = 20_261_202;

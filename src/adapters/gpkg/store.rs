@@ -1,0 +1,606 @@
+//! A GeoPackage file as a [`ResultStore`].
+//!
+//! - **A new file** is built under a temporary name (results tables, the
+//!   `running` rows, then the result rows) and renamed into place only when
+//!   the run succeeded; a failed run leaves no file behind.
+//! - **An existing file** gets its `running` rows in a committed transaction
+//!   and everything else in one `BEGIN IMMEDIATE` transaction, so a failure
+//!   leaves it as it was, with the runs marked failed.
+//! - **One run per job** (`JobLock`): a `running` row whose job lock nobody
+//!   holds belongs to a process that is gone, and is marked failed by the
+//!   next run into the file.
+//! - The per-unit layer copies each unit's geometry blob from the source
+//!   layer (the same file, or the source file attached read-only), so a
+//!   GeoPackage store needs a GeoPackage source; PostGIS results go to
+//!   PostGIS, and `geofold export` makes a GeoPackage of them.
+
+use std::path::{Path, PathBuf};
+use std::time::{Duration, Instant};
+
+use rusqlite::{params, Connection, OptionalExtension, TransactionBehavior};
+use uuid::Uuid;
+
+use super::container::{JobLock, NewFile};
+use super::read::srs_row;
+use super::rows::{insert_rows, job_descriptions, rewrite_job_layers, UnitRows};
+use super::schema::{self, Srs, TriggerSet};
+use super::{check_geopackage, file_error, open_file, sqlite_error, tables};
+use crate::adapters::{add_count, ResultStore, SourceInfo, StoreReport, StoredRun};
+use crate::core::units::Dataset;
+use crate::error::{Error, FileProblem};
+use crate::results::rows::{run_rows, FinishedRun, RunRecord};
+
+/// A GeoPackage results store.
+pub struct GpkgStore {
+    path: PathBuf,
+    conn: Option<Connection>,
+    new_file: Option<NewFile>,
+    lock: Option<(JobLock, String)>,
+    lock_timeout: Duration,
+}
+
+impl GpkgStore {
+    /// A store in the GeoPackage at `path`; the file is created by the first
+    /// successful run when it does not exist. Locks held by other programs
+    /// are waited for up to `lock_timeout`.
+    ///
+    /// # Errors
+    /// Exit 65 for an existing file that is not a GeoPackage; 73 when the
+    /// directory does not exist; 75 when the file stays locked.
+    pub fn open(path: &Path, lock_timeout: Duration) -> Result<GpkgStore, Error> {
+        let conn = if path.exists() {
+            Some(open_existing(path, lock_timeout)?)
+        } else {
+            let directory = super::container::directory_of(path);
+            if !directory.is_dir() {
+                return Err(file_error(
+                    path,
+                    format!(
+                        "cannot create: directory {} does not exist",
+                        directory.display()
+                    ),
+                    FileProblem::CannotCreate,
+                ));
+            }
+            None
+        };
+        Ok(GpkgStore {
+            path: path.to_path_buf(),
+            conn,
+            new_file: None,
+            lock: None,
+            lock_timeout,
+        })
+    }
+
+    fn conn(&self) -> Result<&Connection, Error> {
+        self.conn
+            .as_ref()
+            .ok_or_else(|| Error::Internal("the results file is not open".into()))
+    }
+
+    /// Marks failed the `running` runs whose job lock nobody holds.
+    fn sweep_stale_runs(&self) -> Result<(), Error> {
+        let (Some(conn), Some((lock, ours))) = (&self.conn, &self.lock) else {
+            return Ok(());
+        };
+        let error =
+            |e: rusqlite::Error| sqlite_error(&self.path, "finding runs whose process is gone", &e);
+        let jobs: Vec<String> = {
+            let mut statement = conn
+                .prepare("SELECT DISTINCT job FROM runs WHERE status = 'running'")
+                .map_err(error)?;
+            let rows = statement.query_map([], |row| row.get(0)).map_err(error)?;
+            rows.collect::<Result<_, _>>().map_err(error)?
+        };
+        for job in jobs {
+            let own = &job == ours;
+            if !own && !lock.try_lock(&job) {
+                continue;
+            }
+            let marked = conn.execute(
+                "UPDATE runs SET status = 'failed', finished_at = strftime('%Y-%m-%dT%H:%M:%fZ', 'now'),
+                    error_message = 'the run ended without finishing: the process running it (' ||
+                    coalesce(session, 'unknown') || ') is gone'
+                 WHERE job = ?1 AND status = 'running'",
+                [&job],
+            );
+            if !own {
+                lock.unlock(&job);
+            }
+            let marked = marked.map_err(error)?;
+            if marked > 0 {
+                tracing::warn!(
+                    job,
+                    runs = marked,
+                    "marked runs failed whose process is gone"
+                );
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Opens an existing GeoPackage to write results into.
+fn open_existing(path: &Path, lock_timeout: Duration) -> Result<Connection, Error> {
+    let conn = open_file(path, true)?;
+    conn.busy_timeout(lock_timeout)
+        .map_err(|e| sqlite_error(path, "opening", &e))?;
+    check_geopackage(&conn, path).map_err(|error| match error {
+        Error::File {
+            path,
+            problem,
+            kind: FileProblem::BadContent,
+        } => Error::File {
+            path,
+            problem: format!("{problem}; refusing to write results into it"),
+            kind: FileProblem::BadContent,
+        },
+        other => other,
+    })?;
+    Ok(conn)
+}
+
+/// The SRS row of the source layer, read from the source file.
+fn source_srs(info: &SourceInfo) -> Result<Srs, Error> {
+    let path = info
+        .file
+        .clone()
+        .ok_or_else(|| Error::Internal(format!("GeoPackage source {} has no file", info.table)))?;
+    let conn = open_file(&path, false)?;
+    srs_row(&conn, &path, i64::from(info.srid))?.ok_or_else(|| {
+        file_error(
+            &path,
+            format!(
+                "layer {}: unknown SRS id {}",
+                info.qualified_table, info.srid
+            ),
+            FileProblem::BadContent,
+        )
+    })
+}
+
+/// True when both paths name the same file.
+fn same_file(a: &Path, b: &Path) -> bool {
+    match (a.canonicalize(), b.canonicalize()) {
+        (Ok(a), Ok(b)) => a == b,
+        _ => false,
+    }
+}
+
+/// An SQLite `file:` URI opening `path` read-only.
+fn read_only_uri(path: &Path) -> Result<String, Error> {
+    let absolute = path.canonicalize().map_err(|e| {
+        file_error(
+            path,
+            format!("cannot resolve the path: {e}"),
+            FileProblem::Missing,
+        )
+    })?;
+    let mut uri = String::from("file:");
+    for c in absolute.to_string_lossy().chars() {
+        match c {
+            '%' => uri.push_str("%25"),
+            '?' => uri.push_str("%3f"),
+            '#' => uri.push_str("%23"),
+            other => uri.push(other),
+        }
+    }
+    uri.push_str("?mode=ro");
+    Ok(uri)
+}
+
+/// Inserts the SRS row unless the file has one under that id, and refuses an
+/// existing row that names another CRS.
+fn ensure_srs(conn: &Connection, path: &Path, srs: &Srs) -> Result<(), Error> {
+    if let Some(existing) = srs_row(conn, path, i64::from(srs.srs_id))? {
+        let same = existing
+            .organization
+            .eq_ignore_ascii_case(&srs.organization)
+            && existing.organization_id == srs.organization_id;
+        if !same {
+            return Err(Error::Store {
+                store: path.display().to_string(),
+                problem: format!(
+                    "its SRS id {} is {}:{}, but the results need {}:{} under that id",
+                    srs.srs_id,
+                    existing.organization,
+                    existing.organization_id,
+                    srs.organization,
+                    srs.organization_id
+                ),
+            });
+        }
+        return Ok(());
+    }
+    schema::ensure_srs(conn, srs).map_err(|e| sqlite_error(path, "adding the SRS row", &e))
+}
+
+/// The trigger set the file's `user_version` needs.
+fn trigger_set(conn: &Connection, path: &Path) -> Result<TriggerSet, Error> {
+    let version: i64 = conn
+        .query_row("PRAGMA user_version", [], |row| row.get(0))
+        .map_err(|e| sqlite_error(path, "reading user_version", &e))?;
+    Ok(TriggerSet::for_user_version(version))
+}
+
+/// Refuses a job whose layers would replace tables geofold did not make for
+/// it (`source_layer`: the source layer when it is in this file).
+fn check_job_layers(
+    conn: &Connection,
+    path: &Path,
+    job: &str,
+    source_layer: Option<&str>,
+) -> Result<(), Error> {
+    let error = |e: rusqlite::Error| sqlite_error(path, "checking the job's layers", &e);
+    for (name, description) in job_descriptions(job) {
+        if !schema::has_table(conn, "main", &name).map_err(error)? {
+            continue;
+        }
+        let found: Option<String> = conn
+            .query_row(
+                "SELECT description FROM gpkg_contents WHERE table_name = ?1",
+                [&name],
+                |row| row.get::<_, Option<String>>(0),
+            )
+            .optional()
+            .map_err(error)?
+            .flatten();
+        // Ownership is the description up to its first ";" (earlier versions
+        // said more after it).
+        let head = description.split(';').next().unwrap_or_default();
+        let ours = found
+            .as_deref()
+            .is_some_and(|found| found.split(';').next() == Some(head));
+        if source_layer == Some(name.as_str()) || !ours {
+            let what = if source_layer == Some(name.as_str()) {
+                "the source layer"
+            } else {
+                "a table geofold did not make for this job"
+            };
+            return Err(Error::CannotCreate {
+                what: format!("layer {name} in {}", path.display()),
+                problem: format!("job {job} would replace {what}; name the job with --job"),
+            });
+        }
+    }
+    Ok(())
+}
+
+fn insert_runs(
+    conn: &Connection,
+    info: &SourceInfo,
+    records: &[RunRecord],
+) -> rusqlite::Result<()> {
+    let mut statement = conn.prepare(
+        "INSERT INTO runs (run_id, job, primary_run_id, status, started_at, source_store, source_table,
+            id_column, geometry_column, target_column, feature_columns, scheme, model, family, parameters, seed,
+            repeats, folds, source_srid, distance_srid, tool_version, session, pinned)
+         VALUES (?1, ?2, ?3, 'running', strftime('%Y-%m-%dT%H:%M:%fZ', ?4, 'unixepoch'), ?5, ?6, ?7, ?8,
+            ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, ?17, ?18, ?19, ?20, ?21, 0)",
+    )?;
+    let features = serde_json::Value::from(info.feature_columns.clone()).to_string();
+    for record in records {
+        statement.execute(params![
+            record.run_id.to_string(),
+            record.job,
+            record.primary_run_id.map(|id| id.to_string()),
+            record.started_at_micros as f64 / 1e6,
+            info.store,
+            info.table,
+            info.id_column,
+            info.geom_column,
+            info.target_column,
+            features,
+            record.scheme,
+            record.model,
+            record.family,
+            record.parameters.to_string(),
+            record.seed as i64,
+            record.repeats,
+            record.folds,
+            info.source_srid,
+            info.srid,
+            record.tool_version,
+            record.session,
+        ])?;
+    }
+    Ok(())
+}
+
+impl ResultStore for GpkgStore {
+    fn location(&self) -> String {
+        self.path.display().to_string()
+    }
+
+    fn lock_job(&mut self, job: &str, wait: Duration) -> Result<(), Error> {
+        let lock = JobLock::open(&self.path)?;
+        let deadline = Instant::now() + wait;
+        while !lock.try_lock(job) {
+            if Instant::now() >= deadline {
+                return Err(Error::Busy {
+                    what: format!(
+                        "job {job} in {} is running in another process; nothing was done; try again later \
+                         or pass --wait SECONDS",
+                        self.path.display()
+                    ),
+                });
+            }
+            std::thread::sleep(Duration::from_millis(250).min(wait));
+        }
+        self.lock = Some((lock, job.to_string()));
+        Ok(())
+    }
+
+    fn prepare(&mut self, info: &SourceInfo) -> Result<(), Error> {
+        if info.store != "gpkg" {
+            return Err(Error::Usage(format!(
+                "--results-gpkg needs a GeoPackage source (the per-unit layer copies its geometries); \
+                 for {} write the results to PostGIS (--results-schema) and copy them with \
+                 geofold export --job JOB --to {}",
+                info.table,
+                self.path.display()
+            )));
+        }
+        let path = self.path.clone();
+        match self.conn.as_mut() {
+            Some(conn) => {
+                let triggers = trigger_set(conn, &path)?;
+                let tx = conn
+                    .transaction_with_behavior(TransactionBehavior::Immediate)
+                    .map_err(|e| sqlite_error(&path, "preparing the results tables", &e))?;
+                tables::prepare(&tx, &path, triggers)?;
+                tx.commit()
+                    .map_err(|e| sqlite_error(&path, "preparing the results tables", &e))?;
+                self.sweep_stale_runs()
+            }
+            None => {
+                let (file, conn) = NewFile::create(&path)?;
+                let error = |e: rusqlite::Error| sqlite_error(&path, "creating the GeoPackage", &e);
+                conn.busy_timeout(self.lock_timeout).map_err(error)?;
+                schema::create_container(&conn).map_err(error)?;
+                let triggers = trigger_set(&conn, &path)?;
+                conn.execute_batch("BEGIN").map_err(error)?;
+                tables::prepare(&conn, &path, triggers)?;
+                conn.execute_batch("COMMIT").map_err(error)?;
+                self.conn = Some(conn);
+                self.new_file = Some(file);
+                Ok(())
+            }
+        }
+    }
+
+    fn begin(&mut self, info: &SourceInfo, records: &[RunRecord]) -> Result<(), Error> {
+        let job = records.first().map(|r| r.job.as_str()).unwrap_or_default();
+        let srs = source_srs(info)?;
+        let path = self.path.clone();
+        let source = info.file.clone().unwrap_or_default();
+        let is_new = self.new_file.is_some();
+        let conn = self
+            .conn
+            .as_mut()
+            .ok_or_else(|| Error::Internal("begin before prepare".into()))?;
+        if !is_new {
+            let source_layer = same_file(&path, &source).then_some(info.qualified_table.as_str());
+            check_job_layers(conn, &path, job, source_layer)?;
+        }
+        let action = |e: rusqlite::Error| sqlite_error(&path, "recording the run", &e);
+        let tx = conn
+            .transaction_with_behavior(TransactionBehavior::Immediate)
+            .map_err(action)?;
+        ensure_srs(&tx, &path, &srs)?;
+        insert_runs(&tx, info, records).map_err(action)?;
+        tx.commit().map_err(action)
+    }
+
+    fn commit(
+        &mut self,
+        info: &SourceInfo,
+        data: &Dataset,
+        runs: &[FinishedRun<'_>],
+    ) -> Result<StoreReport, Error> {
+        let path = self.path.clone();
+        let source = info.file.clone().ok_or_else(|| {
+            Error::Internal(format!("GeoPackage source {} has no file", info.table))
+        })?;
+        let conn = self
+            .conn
+            .as_mut()
+            .ok_or_else(|| Error::Internal("commit before begin".into()))?;
+        let schema_name = if same_file(&path, &source) {
+            "main"
+        } else {
+            conn.execute("ATTACH DATABASE ?1 AS source", [read_only_uri(&source)?])
+                .map_err(|e| sqlite_error(&source, "attaching the source file", &e))?;
+            "source"
+        };
+        let written = write_runs(conn, &path, schema_name, info, data, runs);
+        if schema_name == "source" {
+            if let Err(error) = conn.execute_batch("DETACH DATABASE source") {
+                tracing::warn!(%error, "could not detach the source file");
+            }
+        }
+        let (rows_written, layers) = written?;
+        if let Some(file) = self.new_file.take() {
+            let conn = self
+                .conn
+                .take()
+                .ok_or_else(|| Error::Internal("the new file has no connection".into()))?;
+            file.finish(conn)?;
+            self.conn = Some(open_existing(&path, self.lock_timeout)?);
+        }
+        Ok(StoreReport {
+            store: "gpkg",
+            location: path.display().to_string(),
+            layers,
+            rows_written,
+        })
+    }
+
+    fn fail(&mut self, records: &[RunRecord], message: &str) {
+        if self.new_file.take().is_some() {
+            // Dropping the new file removes it: a failed first run leaves no file.
+            self.conn = None;
+            return;
+        }
+        let Some(conn) = &self.conn else {
+            return;
+        };
+        for record in records {
+            let result = conn.execute(
+                "UPDATE runs SET status = 'failed', finished_at = strftime('%Y-%m-%dT%H:%M:%fZ', 'now'),
+                    error_message = ?2 WHERE run_id = ?1 AND status = 'running'",
+                params![record.run_id.to_string(), message],
+            );
+            if let Err(error) = result {
+                tracing::warn!(%error, "could not mark the run failed; the next run will");
+            }
+        }
+    }
+
+    fn runs(&mut self, job: Option<&str>, limit: usize) -> Result<Vec<StoredRun>, Error> {
+        let path = self.path.clone();
+        let conn = self.conn()?;
+        let error = |e: rusqlite::Error| sqlite_error(&path, "reading the run history", &e);
+        let limit = i64::try_from(limit).unwrap_or(i64::MAX);
+        let mut statement = conn
+            .prepare(
+                "SELECT run_id, job, primary_run_id, status, started_at, finished_at, scheme, model, units_used,
+                        input_fingerprint, parameters, error_message, pinned
+                 FROM runs WHERE (?1 IS NULL OR job = ?1) ORDER BY started_at DESC, run_id LIMIT ?2",
+            )
+            .map_err(error)?;
+        let parse = |text: String| Uuid::parse_str(&text).unwrap_or_default();
+        let mut found: Vec<StoredRun> = statement
+            .query_map(params![job, limit], |row| {
+                let parameters: String = row.get(10)?;
+                Ok(StoredRun {
+                    run_id: parse(row.get(0)?),
+                    job: row.get(1)?,
+                    primary_run_id: row.get::<_, Option<String>>(2)?.map(parse),
+                    status: row.get(3)?,
+                    started_at: row.get(4)?,
+                    finished_at: row.get(5)?,
+                    scheme: row.get(6)?,
+                    model: row.get(7)?,
+                    units_used: row.get(8)?,
+                    input_fingerprint: row.get(9)?,
+                    parameters: serde_json::from_str(&parameters).unwrap_or_default(),
+                    error_message: row.get(11)?,
+                    pinned: row.get(12)?,
+                    scores: Vec::new(),
+                })
+            })
+            .map_err(error)?
+            .collect::<Result<_, _>>()
+            .map_err(error)?;
+        let mut scores = conn
+            .prepare("SELECT score, statistic, value FROM run_score_values WHERE run_id = ?1 ORDER BY score, statistic")
+            .map_err(error)?;
+        for run in &mut found {
+            run.scores = scores
+                .query_map([run.run_id.to_string()], |row| {
+                    Ok((row.get(0)?, row.get(1)?, row.get(2)?))
+                })
+                .map_err(error)?
+                .collect::<Result<_, _>>()
+                .map_err(error)?;
+        }
+        Ok(found)
+    }
+
+    fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error> {
+        let path = self.path.clone();
+        let conn = self.conn()?;
+        let changed = conn
+            .execute(
+                "UPDATE runs SET pinned = (run_id = ?1)
+                 WHERE job = (SELECT job FROM runs WHERE run_id = ?1 AND status = 'succeeded' AND primary_run_id IS NULL)",
+                [run_id.to_string()],
+            )
+            .map_err(|e| sqlite_error(&path, "pinning the baseline run", &e))?;
+        if changed == 0 {
+            return Err(Error::Usage(format!(
+                "run {run_id} is not a successful primary run in {}: only those can be pinned",
+                path.display()
+            )));
+        }
+        self.runs(None, usize::MAX)?
+            .into_iter()
+            .find(|run| run.run_id == run_id)
+            .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
+    }
+}
+
+/// Rows written per table, and the job's layers.
+type Written = (Vec<(String, u64)>, Vec<crate::adapters::Layer>);
+
+/// Writes every run's rows, marks them succeeded and rewrites the job's
+/// layers, in one transaction.
+fn write_runs(
+    conn: &mut Connection,
+    path: &Path,
+    source_schema: &str,
+    info: &SourceInfo,
+    data: &Dataset,
+    runs: &[FinishedRun<'_>],
+) -> Result<Written, Error> {
+    let triggers = trigger_set(conn, path)?;
+    let tx = conn
+        .transaction_with_behavior(TransactionBehavior::Immediate)
+        .map_err(|e| sqlite_error(path, "starting the transaction", &e))?;
+    let mut counts = Vec::new();
+    let mut layers = Vec::new();
+    let fingerprint = data.fingerprint();
+    let skipped = data.skipped.counts_json().to_string();
+    for run in runs {
+        let mut unit_rows = None;
+        for rows in run_rows(data, run, info.srid) {
+            if rows.is_empty() {
+                continue;
+            }
+            let range = insert_rows(&tx, path, rows.as_ref())?;
+            let table = rows.table().name;
+            if (table == "held_out" && run.outcome.repetitions.len() == 1)
+                || table == "unit_summaries"
+            {
+                unit_rows = Some(UnitRows { table, range });
+            }
+            add_count(&mut counts, table, rows.len() as u64);
+        }
+        schema::refresh_extent(&tx, "fold_regions")
+            .map_err(|e| sqlite_error(path, "updating the extent of fold_regions", &e))?;
+        tx.execute(
+            "UPDATE runs SET status = 'succeeded', finished_at = strftime('%Y-%m-%dT%H:%M:%fZ', 'now'),
+                input_fingerprint = ?2, units_read = ?3, units_used = ?4, units_skipped = ?5
+             WHERE run_id = ?1",
+            params![run.record.run_id.to_string(), fingerprint, data.rows_read as i64, data.len() as i64, skipped],
+        )
+        .map_err(|e| sqlite_error(path, "marking the run succeeded", &e))?;
+        if run.record.primary_run_id.is_none() {
+            let units = unit_rows
+                .ok_or_else(|| Error::Internal("the primary run wrote no per-unit rows".into()))?;
+            let regions = run
+                .outcome
+                .repetitions
+                .first()
+                .map(|r| r.folds.regions.as_slice())
+                .unwrap_or(&[]);
+            let (made, written) = rewrite_job_layers(
+                &tx,
+                path,
+                &run.record.job,
+                info,
+                source_schema,
+                units,
+                regions,
+                triggers,
+            )?;
+            add_count(&mut counts, &run.record.job, written);
+            layers = made;
+        }
+    }
+    tx.commit()
+        .map_err(|e| sqlite_error(path, "committing", &e))?;
+    Ok((counts, layers))
+}

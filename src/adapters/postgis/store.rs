@@ -1,0 +1,637 @@
+//! A PostGIS results schema as a [`ResultStore`].
+//!
+//! - **One run per job.** [`lock_job`](ResultStore::lock_job) takes a session
+//!   advisory lock keyed on the schema and job (FNV-1a, [`lock_key`]); the
+//!   server frees it when the session ends, however it ends.
+//! - **No run left `running`.** A run's row says `running` while its session
+//!   holds its job's lock. [`prepare`](ResultStore::prepare) marks failed every
+//!   `running` run whose job lock nobody holds: its process or session is gone
+//!   (killed, terminated, timed out).
+//! - **All or nothing.** [`commit`](ResultStore::commit) loads every table
+//!   with binary COPY, marks the runs succeeded and points the job's views at
+//!   the primary run inside one transaction.
+
+use std::pin::pin;
+use std::time::{Duration, Instant};
+
+use futures_util::SinkExt;
+use tokio_postgres::Transaction;
+use uuid::Uuid;
+
+use super::copy::CopyEncoder;
+use super::layers::job_views;
+use super::migrate::{lock_key, prepare_schema};
+use super::{database_error, quote_ident, Session};
+use crate::adapters::{add_count, Layer, ResultStore, SourceInfo, StoreReport, StoredRun};
+use crate::core::units::{Dataset, IdKind};
+use crate::error::Error;
+use crate::results::rows::{run_rows, FinishedRun, RowSource, RunRecord, Value};
+use crate::results::{TableDef, JOBS, REGIONS_SUFFIX, RUNS};
+
+/// Bytes per COPY message sent to the server.
+const CHUNK: usize = 1 << 20;
+
+/// A PostGIS results schema.
+pub struct PostgisStore {
+    session: Session,
+    schema: String,
+    /// The connection string, to reconnect when marking a run failed after
+    /// the session was lost.
+    db: Option<String>,
+    locked: Option<i64>,
+}
+
+impl PostgisStore {
+    /// A store in `schema` (created on first use) reached through `session`.
+    pub fn new(session: Session, schema: &str, db: Option<&str>) -> PostgisStore {
+        PostgisStore {
+            session,
+            schema: schema.to_string(),
+            db: db.map(str::to_string),
+            locked: None,
+        }
+    }
+
+    fn qualified(&self, table: &str) -> String {
+        format!("{}.{}", quote_ident(&self.schema), quote_ident(table))
+    }
+
+    /// The session, for the store's reads in [`super::reads`].
+    pub(crate) fn session(&self) -> &Session {
+        &self.session
+    }
+
+    /// The results schema (unquoted).
+    pub fn schema(&self) -> &str {
+        &self.schema
+    }
+
+    fn job_key(&self, job: &str) -> i64 {
+        lock_key(&format!("geofold job {} {job}", self.schema))
+    }
+
+    /// Who holds the advisory lock `key`, for the busy message.
+    fn holder(&self, key: i64) -> String {
+        let sql = "SELECT a.pid, coalesce(a.application_name, ''), coalesce(a.client_addr::text, 'local'), \
+                   to_char(a.backend_start AT TIME ZONE 'UTC', 'YYYY-MM-DD HH24:MI:SS') \
+                   FROM pg_locks l JOIN pg_stat_activity a ON a.pid = l.pid \
+                   WHERE l.locktype = 'advisory' AND l.granted \
+                   AND l.classid = ($1::bigint >> 32)::oid AND l.objid = ($1::bigint & 4294967295)::oid \
+                   LIMIT 1";
+        match self
+            .session
+            .runtime
+            .block_on(self.session.client.query_opt(sql, &[&key]))
+        {
+            Ok(Some(row)) => {
+                let pid: i32 = row.try_get(0).unwrap_or(0);
+                let app: String = row.try_get(1).unwrap_or_default();
+                let addr: String = row.try_get(2).unwrap_or_default();
+                let since: String = row.try_get(3).unwrap_or_default();
+                format!("held by server process {pid} ({app}, from {addr}, connected since {since} UTC)")
+            }
+            _ => "held by another session".to_string(),
+        }
+    }
+
+    fn try_lock(&self, key: i64) -> Result<bool, Error> {
+        self.session
+            .runtime
+            .block_on(
+                self.session
+                    .client
+                    .query_one("SELECT pg_try_advisory_lock($1)", &[&key]),
+            )
+            .and_then(|row| row.try_get(0))
+            .map_err(|e| database_error("taking the job's lock", &e))
+    }
+
+    fn unlock(&self, key: i64) -> Result<(), Error> {
+        self.session
+            .runtime
+            .block_on(
+                self.session
+                    .client
+                    .execute("SELECT pg_advisory_unlock($1)", &[&key]),
+            )
+            .map(|_| ())
+            .map_err(|e| database_error("releasing a job's lock", &e))
+    }
+
+    /// Marks failed the `running` runs whose job lock nobody holds.
+    fn sweep_stale_runs(&mut self) -> Result<(), Error> {
+        let runs = self.qualified("runs");
+        let action = "finding runs whose process is gone";
+        let jobs: Vec<String> = self
+            .session
+            .runtime
+            .block_on(self.session.client.query(
+                &format!("SELECT DISTINCT job FROM {runs} WHERE status = 'running'"),
+                &[],
+            ))
+            .map_err(|e| database_error(action, &e))?
+            .iter()
+            .filter_map(|row| row.try_get(0).ok())
+            .collect();
+        for job in jobs {
+            let key = self.job_key(&job);
+            let ours = self.locked == Some(key);
+            if !ours && !self.try_lock(key)? {
+                continue;
+            }
+            let marked = self
+                .session
+                .runtime
+                .block_on(self.session.client.execute(
+                    &format!(
+                        "UPDATE {runs} SET status = 'failed', finished_at = now(), \
+                         error_message = 'the run ended without finishing: the process or database session running it (' \
+                         || coalesce(session, 'unknown') || ') is gone' \
+                         WHERE job = $1 AND status = 'running'"
+                    ),
+                    &[&job],
+                ))
+                .map_err(|e| database_error(action, &e));
+            if !ours {
+                self.unlock(key)?;
+            }
+            let marked = marked?;
+            if marked > 0 {
+                tracing::warn!(
+                    job,
+                    runs = marked,
+                    "marked runs failed whose process is gone"
+                );
+            }
+        }
+        Ok(())
+    }
+}
+
+impl ResultStore for PostgisStore {
+    fn location(&self) -> String {
+        format!("schema {} in {}", self.schema, self.session.description)
+    }
+
+    fn lock_job(&mut self, job: &str, wait: Duration) -> Result<(), Error> {
+        let key = self.job_key(job);
+        let deadline = Instant::now() + wait;
+        loop {
+            if self.try_lock(key)? {
+                self.locked = Some(key);
+                return Ok(());
+            }
+            if Instant::now() >= deadline {
+                return Err(Error::Busy {
+                    what: format!(
+                        "job {job} in schema {} is running in another process ({}); nothing was done; \
+                         try again later or pass --wait SECONDS",
+                        self.schema,
+                        self.holder(key)
+                    ),
+                });
+            }
+            std::thread::sleep(Duration::from_millis(250).min(wait));
+        }
+    }
+
+    fn prepare(&mut self, _source: &SourceInfo) -> Result<(), Error> {
+        prepare_schema(&mut self.session, &self.schema)?;
+        self.sweep_stale_runs()
+    }
+
+    fn begin(&mut self, info: &SourceInfo, records: &[RunRecord]) -> Result<(), Error> {
+        let runs = self.qualified("runs");
+        let session = &self.session;
+        session.runtime.block_on(async {
+            for record in records {
+                let started = record.started_at_micros as f64 / 1e6;
+                session
+                    .client
+                    .execute(
+                        &format!(
+                            "INSERT INTO {runs} (run_id, job, primary_run_id, status, started_at, source_store, source_table,
+                                id_column, geometry_column, target_column, feature_columns, scheme, model, family,
+                                parameters, seed, repeats, folds, source_srid, distance_srid, tool_version, session, pinned)
+                             VALUES ($1, $2, $3, 'running', to_timestamp($4), $5, $6, $7, $8, $9, $10, $11, $12, $13,
+                                $14, $15, $16, $17, $18, $19, $20, $21, false)"
+                        ),
+                        &[
+                            &record.run_id,
+                            &record.job,
+                            &record.primary_run_id,
+                            &started,
+                            &info.store,
+                            &info.table,
+                            &info.id_column,
+                            &info.geom_column,
+                            &info.target_column,
+                            &info.feature_columns,
+                            &record.scheme,
+                            &record.model,
+                            &record.family,
+                            &record.parameters,
+                            &(record.seed as i64),
+                            &(record.repeats as i32),
+                            &(record.folds as i32),
+                            &info.source_srid,
+                            &info.srid,
+                            &record.tool_version,
+                            &record.session,
+                        ],
+                    )
+                    .await
+                    .map_err(|e| database_error("recording the run", &e))?;
+            }
+            Ok(())
+        })
+    }
+
+    fn commit(
+        &mut self,
+        info: &SourceInfo,
+        data: &Dataset,
+        runs: &[FinishedRun<'_>],
+    ) -> Result<StoreReport, Error> {
+        let schema = self.schema.clone();
+        let session = &mut self.session;
+        let runtime = &session.runtime;
+        let client = &mut session.client;
+        let (rows_written, layers) = runtime.block_on(async {
+            let action = format!("writing results to schema {schema}");
+            let tx = client
+                .transaction()
+                .await
+                .map_err(|e| database_error(&action, &e))?;
+            let mut counts: Vec<(String, u64)> = Vec::new();
+            for run in runs {
+                for rows in run_rows(data, run, info.srid) {
+                    if rows.is_empty() {
+                        continue;
+                    }
+                    let written = copy_rows(&tx, &schema, rows.as_ref(), info.srid).await?;
+                    add_count(&mut counts, rows.table().name, written);
+                }
+                mark_succeeded(&tx, &schema, run, data).await?;
+            }
+            // Summarise the BRIN ranges the COPYs just filled, so queries by run
+            // skip them at once rather than after the next VACUUM.
+            for table in ["held_out", "unit_summaries", "fold_exclusions"] {
+                let index = format!(
+                    "{}.{}",
+                    quote_ident(&schema),
+                    quote_ident(&format!("{table}_run_brin"))
+                );
+                tx.execute(
+                    "SELECT brin_summarize_new_values($1::text::regclass)",
+                    &[&index],
+                )
+                .await
+                .map_err(|e| database_error("summarising the run indexes", &e))?;
+            }
+            let mut layers = Vec::new();
+            if let Some(primary) = runs.iter().find(|run| run.record.primary_run_id.is_none()) {
+                let regions = primary
+                    .outcome
+                    .repetitions
+                    .first()
+                    .is_some_and(|r| !r.folds.regions.is_empty());
+                layers =
+                    point_job_views(&tx, &schema, &primary.record.job, info, data, regions).await?;
+            }
+            tx.commit().await.map_err(|e| database_error(&action, &e))?;
+            Ok::<_, Error>((counts, layers))
+        })?;
+        Ok(StoreReport {
+            store: "postgis",
+            location: format!("{} schema {}", self.session.description, self.schema),
+            layers,
+            rows_written,
+        })
+    }
+
+    fn fail(&mut self, records: &[RunRecord], message: &str) {
+        let runs = self.qualified("runs");
+        let sql = format!(
+            "UPDATE {runs} SET status = 'failed', finished_at = now(), error_message = $2 \
+             WHERE run_id = $1 AND status = 'running'"
+        );
+        let mark = |session: &Session| -> Result<(), tokio_postgres::Error> {
+            session.runtime.block_on(async {
+                for record in records {
+                    session
+                        .client
+                        .execute(&sql, &[&record.run_id, &message])
+                        .await?;
+                }
+                Ok(())
+            })
+        };
+        if mark(&self.session).is_ok() {
+            return;
+        }
+        // The session may be gone (a lost connection, a terminated backend):
+        // try once on a new one; otherwise the next run marks these failed.
+        match Session::connect(self.db.as_deref()).map(|session| mark(&session)) {
+            Ok(Ok(())) => {}
+            Ok(Err(error)) => {
+                tracing::warn!(%error, "could not mark the run failed; the next run will")
+            }
+            Err(error) => {
+                tracing::warn!(%error, "could not mark the run failed; the next run will")
+            }
+        }
+    }
+
+    fn runs(&mut self, job: Option<&str>, limit: usize) -> Result<Vec<StoredRun>, Error> {
+        let runs = self.qualified("runs");
+        let scores = self.qualified("run_score_values");
+        let limit = i64::try_from(limit).unwrap_or(i64::MAX);
+        let session = &self.session;
+        let action = "reading the run history";
+        session.runtime.block_on(async {
+            let rows = session
+                .client
+                .query(
+                    &format!(
+                        "SELECT run_id, job, primary_run_id, status,
+                            to_char(started_at AT TIME ZONE 'UTC', 'YYYY-MM-DD\"T\"HH24:MI:SS.MS\"Z\"'),
+                            to_char(finished_at AT TIME ZONE 'UTC', 'YYYY-MM-DD\"T\"HH24:MI:SS.MS\"Z\"'),
+                            scheme, model, units_used, input_fingerprint, parameters, error_message, pinned
+                         FROM {runs} WHERE ($1::text IS NULL OR job = $1)
+                         ORDER BY started_at DESC, run_id LIMIT $2"
+                    ),
+                    &[&job, &limit],
+                )
+                .await
+                .map_err(|e| database_error(action, &e))?;
+            let mut found = Vec::with_capacity(rows.len());
+            for row in rows {
+                let get = |e: tokio_postgres::Error| database_error(action, &e);
+                found.push(StoredRun {
+                    run_id: row.try_get(0).map_err(get)?,
+                    job: row.try_get(1).map_err(get)?,
+                    primary_run_id: row.try_get(2).map_err(get)?,
+                    status: row.try_get(3).map_err(get)?,
+                    started_at: row.try_get(4).map_err(get)?,
+                    finished_at: row.try_get(5).map_err(get)?,
+                    scheme: row.try_get(6).map_err(get)?,
+                    model: row.try_get(7).map_err(get)?,
+                    units_used: row.try_get(8).map_err(get)?,
+                    input_fingerprint: row.try_get(9).map_err(get)?,
+                    parameters: row.try_get(10).map_err(get)?,
+                    error_message: row.try_get(11).map_err(get)?,
+                    pinned: row.try_get(12).map_err(get)?,
+                    scores: Vec::new(),
+                });
+            }
+            let ids: Vec<Uuid> = found.iter().map(|run| run.run_id).collect();
+            let rows = session
+                .client
+                .query(
+                    &format!(
+                        "SELECT run_id, score, statistic, value FROM {scores} WHERE run_id = ANY($1) \
+                         ORDER BY run_id, score, statistic"
+                    ),
+                    &[&ids],
+                )
+                .await
+                .map_err(|e| database_error(action, &e))?;
+            for row in rows {
+                let get = |e: tokio_postgres::Error| database_error(action, &e);
+                let run_id: Uuid = row.try_get(0).map_err(get)?;
+                if let Some(run) = found.iter_mut().find(|run| run.run_id == run_id) {
+                    run.scores.push((
+                        row.try_get(1).map_err(get)?,
+                        row.try_get(2).map_err(get)?,
+                        row.try_get(3).map_err(get)?,
+                    ));
+                }
+            }
+            Ok(found)
+        })
+    }
+
+    fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error> {
+        let runs = self.qualified("runs");
+        let action = "pinning the baseline run";
+        let changed = self
+            .session
+            .runtime
+            .block_on(self.session.client.execute(
+                &format!(
+                    "UPDATE {runs} r SET pinned = (r.run_id = $1)
+                     FROM {runs} p WHERE p.run_id = $1 AND p.status = 'succeeded' AND p.primary_run_id IS NULL
+                     AND r.job = p.job"
+                ),
+                &[&run_id],
+            ))
+            .map_err(|e| database_error(action, &e))?;
+        if changed == 0 {
+            return Err(Error::Usage(format!(
+                "run {run_id} is not a successful primary run in schema {}: only those can be pinned",
+                self.schema
+            )));
+        }
+        self.runs(None, usize::MAX)?
+            .into_iter()
+            .find(|run| run.run_id == run_id)
+            .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
+    }
+}
+
+/// Loads one table's rows with binary COPY.
+async fn copy_rows(
+    tx: &Transaction<'_>,
+    schema: &str,
+    rows: &dyn RowSource<'_>,
+    srid: i32,
+) -> Result<u64, Error> {
+    let table: &TableDef = rows.table();
+    let name = format!("{}.{}", quote_ident(schema), quote_ident(table.name));
+    let action = format!("loading {name}");
+    let sink = tx
+        .copy_in(&format!(
+            "COPY {name} ({}) FROM STDIN (FORMAT binary)",
+            table.column_list()
+        ))
+        .await
+        .map_err(|e| database_error(&action, &e))?;
+    let mut sink = pin!(sink);
+    let mut encoder = CopyEncoder::new();
+    let mut values: Vec<Value<'_>> = Vec::with_capacity(table.columns.len());
+    for row in 0..rows.len() {
+        rows.fill(row, &mut values);
+        encoder.row(table.columns.len() as i16);
+        for (column, value) in table.columns.iter().zip(&values) {
+            encoder.value(column, value, srid);
+        }
+        if let Some(bytes) = encoder.take_if_larger(CHUNK) {
+            sink.send(bytes)
+                .await
+                .map_err(|e| send_error(&action, &e))?;
+        }
+    }
+    sink.send(encoder.finish())
+        .await
+        .map_err(|e| send_error(&action, &e))?;
+    let written = sink
+        .as_mut()
+        .finish()
+        .await
+        .map_err(|e| database_error(&action, &e))?;
+    if written != rows.len() as u64 {
+        return Err(Error::Internal(format!(
+            "{name}: wrote {written} rows, expected {}",
+            rows.len()
+        )));
+    }
+    Ok(written)
+}
+
+/// The error of a failed COPY send. When the server refuses the data while
+/// rows are still being sent, tokio-postgres drops the server's message and
+/// reports a closed channel; say what that means instead of "connection closed".
+fn send_error(action: &str, error: &tokio_postgres::Error) -> Error {
+    if error.as_db_error().is_some() {
+        return database_error(action, error);
+    }
+    Error::Database {
+        action: action.to_string(),
+        message: format!(
+            "the server ended the load early ({error}): it refused the data or the connection dropped; \
+             the server log has the reason"
+        ),
+        sqlstate: None,
+    }
+}
+
+/// Marks a run succeeded with its input facts.
+async fn mark_succeeded(
+    tx: &Transaction<'_>,
+    schema: &str,
+    run: &FinishedRun<'_>,
+    data: &Dataset,
+) -> Result<(), Error> {
+    tx.execute(
+        &format!(
+            "UPDATE {}.{} SET status = 'succeeded', finished_at = clock_timestamp(), input_fingerprint = $2,
+                units_read = $3, units_used = $4, units_skipped = $5 WHERE run_id = $1",
+            quote_ident(schema),
+            quote_ident(RUNS.name)
+        ),
+        &[
+            &run.record.run_id,
+            &data.fingerprint(),
+            &(data.rows_read as i64),
+            &(data.len() as i64),
+            &data.skipped.counts_json(),
+        ],
+    )
+    .await
+    .map_err(|e| database_error("marking the run succeeded", &e))?;
+    Ok(())
+}
+
+/// Makes the job's views show its latest run: creates them when missing and
+/// replaces them only when their definition changed; refuses to replace a
+/// table or view geofold did not make.
+async fn point_job_views(
+    tx: &Transaction<'_>,
+    schema: &str,
+    job: &str,
+    info: &SourceInfo,
+    data: &Dataset,
+    regions: bool,
+) -> Result<Vec<Layer>, Error> {
+    let views = job_views(schema, job, info, data, regions);
+    let q = |name: &str| format!("{}.{}", quote_ident(schema), quote_ident(name));
+    let jobs = q(JOBS.name);
+    let action = format!("making the map views of job {job}");
+    let recorded: Option<String> = tx
+        .query_opt(
+            &format!("SELECT layer_definition FROM {jobs} WHERE job = $1"),
+            &[&job],
+        )
+        .await
+        .map_err(|e| database_error(&action, &e))?
+        .and_then(|row| row.try_get(0).ok());
+    let names = [job.to_string(), format!("{job}{REGIONS_SUFFIX}")];
+    let mut present = Vec::new();
+    for name in &names {
+        let exists = tx
+            .query_opt(
+                "SELECT 1 FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace \
+                 WHERE n.nspname = $1 AND c.relname = $2",
+                &[&schema, name],
+            )
+            .await
+            .map_err(|e| database_error(&action, &e))?
+            .is_some();
+        if exists {
+            present.push(name.clone());
+        }
+    }
+    if recorded.is_none() {
+        if let Some(name) = present.first() {
+            return Err(Error::CannotCreate {
+                what: format!("view {}", q(name)),
+                problem: format!(
+                    "a table or view of that name, which geofold did not make for job {job}, is in the way; \
+                     rename it or choose another --job"
+                ),
+            });
+        }
+    }
+    let wanted: Vec<&String> = views.views.iter().map(|(name, _)| name).collect();
+    let unchanged = recorded.as_deref() == Some(views.definition.as_str())
+        && wanted.iter().all(|name| present.contains(name));
+    if !unchanged {
+        for name in present.iter().rev() {
+            tx.batch_execute(&format!("DROP VIEW {}", q(name)))
+                .await
+                .map_err(|e| database_error(&format!("replacing view {}", q(name)), &e))?;
+        }
+        for (name, sql) in &views.views {
+            tx.batch_execute(sql)
+                .await
+                .map_err(|e| database_error(&format!("creating view {}", q(name)), &e))?;
+        }
+        tx.execute(
+            &format!(
+                "INSERT INTO {jobs} (job, source_table, id_type, geometry_type, srid, distance_srid, layer_definition)
+                 VALUES ($1, $2, $3, $4, $5, $6, $7)
+                 ON CONFLICT (job) DO UPDATE SET source_table = excluded.source_table, id_type = excluded.id_type,
+                    geometry_type = excluded.geometry_type, srid = excluded.srid,
+                    distance_srid = excluded.distance_srid, layer_definition = excluded.layer_definition"
+            ),
+            &[
+                &job,
+                &info.table,
+                &(match info.id_kind {
+                    IdKind::Integer => "bigint",
+                    IdKind::Text => "text",
+                }),
+                &views.geometry_type,
+                &info.source_srid,
+                &info.srid,
+                &views.definition,
+            ],
+        )
+        .await
+        .map_err(|e| database_error(&action, &e))?;
+    }
+    let mut layers = vec![Layer {
+        name: format!("{schema}.{job}"),
+        key: "fid".into(),
+        shows: "per-unit errors of the latest successful run, with each unit's fold".into(),
+    }];
+    if regions {
+        layers.push(Layer {
+            name: format!("{schema}.{job}{REGIONS_SUFFIX}"),
+            key: "region_id".into(),
+            shows: "fold regions of that run, coloured by fold".into(),
+        });
+    }
+    Ok(layers)
+}

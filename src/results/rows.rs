@@ -1,0 +1,380 @@
+//! The rows a finished run writes, table by table, as values in the order of
+//! each table's columns. Both stores write these rows through their own
+//! encoders, so what a run stores is decided here once.
+
+use geo_types::MultiPolygon;
+use serde::Serialize;
+use uuid::Uuid;
+
+use super::{
+    TableDef, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES, HELD_OUT, RUN_SCORE_VALUES,
+    UNIT_SUMMARIES,
+};
+use crate::core::units::{Dataset, UnitId};
+use crate::core::validate::{unit_summary, RunOutcome};
+
+/// The record of one run, as stored in `runs` (with the source's columns,
+/// which the store takes from the source).
+#[derive(Debug, Clone, Serialize)]
+pub struct RunRecord {
+    /// The run's id.
+    pub run_id: Uuid,
+    /// The job label.
+    pub job: String,
+    /// For a comparison run (random folds beside a spatial scheme), the primary run.
+    pub primary_run_id: Option<Uuid>,
+    /// Start, Unix microseconds.
+    pub started_at_micros: i64,
+    /// Scheme name.
+    pub scheme: String,
+    /// Model family name.
+    pub model: String,
+    /// `regression`, …
+    pub family: &'static str,
+    /// Scheme and model options: `{"scheme": {…}, "model": {…}, "exclusion-radius": …}`.
+    pub parameters: serde_json::Value,
+    /// Seed.
+    pub seed: u64,
+    /// Repetitions.
+    pub repeats: u32,
+    /// Folds (for leave-one-out schemes, the number of units).
+    pub folds: u32,
+    /// geofold version.
+    pub tool_version: String,
+    /// The process running it (`host:pid`), for finding runs whose process is gone.
+    pub session: String,
+}
+
+/// A value of a results row.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Value<'a> {
+    /// SQL NULL.
+    Null,
+    /// A run id.
+    Uuid(Uuid),
+    /// A borrowed text.
+    Str(&'a str),
+    /// A unit id, written as text.
+    Id(&'a UnitId),
+    /// An integer (the column decides 32 or 64 bits).
+    Int(i64),
+    /// A double.
+    Float(f64),
+    /// A multipolygon (its SRID is in the row's `srid` column).
+    Geometry(&'a MultiPolygon<f64>),
+}
+
+impl Value<'_> {
+    /// A double or NULL.
+    pub fn float(value: Option<f64>) -> Value<'static> {
+        match value {
+            Some(v) if v.is_finite() => Value::Float(v),
+            _ => Value::Null,
+        }
+    }
+}
+
+/// A value read back from a store (for copying runs between stores).
+#[derive(Debug, Clone, PartialEq)]
+pub enum Owned {
+    /// SQL NULL.
+    Null,
+    /// Text (run ids, timestamps, JSON and lists travel as text).
+    Text(String),
+    /// An integer (booleans as 0/1).
+    Int(i64),
+    /// A double.
+    Float(f64),
+    /// A multipolygon.
+    Geometry(MultiPolygon<f64>),
+}
+
+impl Owned {
+    /// The value to write.
+    pub fn value(&self) -> Value<'_> {
+        match self {
+            Owned::Null => Value::Null,
+            Owned::Text(text) => Value::Str(text),
+            Owned::Int(number) => Value::Int(*number),
+            Owned::Float(number) => Value::Float(*number),
+            Owned::Geometry(shape) => Value::Geometry(shape),
+        }
+    }
+}
+
+/// Rows of one table; their values borrow from what lives for `'a`.
+pub trait RowSource<'a> {
+    /// The table.
+    fn table(&self) -> &'static TableDef;
+    /// How many rows.
+    fn len(&self) -> usize;
+    /// True when there are none.
+    fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+    /// Row `row`'s values, in column order, into `out` (cleared first).
+    fn fill(&self, row: usize, out: &mut Vec<Value<'a>>);
+}
+
+/// A finished run and its outcome.
+pub struct FinishedRun<'a> {
+    /// Its record.
+    pub record: &'a RunRecord,
+    /// Its outcome.
+    pub outcome: &'a RunOutcome,
+}
+
+/// The rows of every results table for one finished run, in table order.
+pub fn run_rows<'a>(
+    data: &'a Dataset,
+    run: &FinishedRun<'a>,
+    distance_srid: i32,
+) -> Vec<Box<dyn RowSource<'a> + 'a>> {
+    let run_id = run.record.run_id;
+    let outcome = run.outcome;
+    let mut folds = Vec::new();
+    let mut scores = Vec::new();
+    let mut regions = Vec::new();
+    let mut exclusions = Vec::new();
+    let mut offset = 0usize;
+    for (repetition, rep) in outcome.repetitions.iter().enumerate() {
+        for (fold, result) in rep.fold_results.iter().enumerate() {
+            folds.push((repetition, fold));
+            for (name, value) in &result.scores.values {
+                scores.push((repetition, fold, *name, *value));
+            }
+            exclusions.push((offset, repetition, fold));
+            offset += rep.folds.excluded_from(fold as u32).len();
+        }
+        for region in 0..rep.folds.regions.len() {
+            regions.push((repetition, region));
+        }
+    }
+    let mut run_scores: Vec<(&'static str, &'static str, Option<f64>)> =
+        vec![("n", "pooled", Some(outcome.pooled.n as f64))];
+    for (name, value) in &outcome.pooled.values {
+        run_scores.push((name, "pooled", *value));
+    }
+    for (name, spread) in &outcome.fold_spread {
+        run_scores.push((name, "fold_mean", Some(spread.mean)));
+        run_scores.push((name, "fold_sd", Some(spread.sd)));
+    }
+    for (name, spread) in outcome.repeat_spread.iter().flatten() {
+        run_scores.push((name, "repeat_mean", Some(spread.mean)));
+        run_scores.push((name, "repeat_sd", Some(spread.sd)));
+    }
+    for (name, value) in &outcome.baseline.values {
+        run_scores.push((name, "baseline", *value));
+    }
+    vec![
+        Box::new(HeldOut {
+            run_id,
+            data,
+            outcome,
+        }),
+        Box::new(Summaries {
+            run_id,
+            data,
+            outcome,
+        }),
+        Box::new(Listed {
+            table: &FOLDS,
+            items: folds,
+            fill: move |&(repetition, fold): &(usize, usize), out: &mut Vec<Value<'a>>| {
+                let result = &outcome.repetitions[repetition].fold_results[fold];
+                out.extend([
+                    Value::Uuid(run_id),
+                    Value::Int(repetition as i64 + 1),
+                    Value::Int(fold as i64 + 1),
+                    Value::Int(result.n_train as i64),
+                    Value::Int(result.n_test as i64),
+                    Value::Int(result.n_excluded as i64),
+                ]);
+            },
+        }),
+        Box::new(Listed {
+            table: &FOLD_SCORE_VALUES,
+            items: scores,
+            fill: move |&(repetition, fold, name, value): &(
+                usize,
+                usize,
+                &'static str,
+                Option<f64>,
+            ),
+                        out: &mut Vec<Value<'a>>| {
+                out.extend([
+                    Value::Uuid(run_id),
+                    Value::Int(repetition as i64 + 1),
+                    Value::Int(fold as i64 + 1),
+                    Value::Str(name),
+                    Value::float(value),
+                ]);
+            },
+        }),
+        Box::new(Listed {
+            table: &RUN_SCORE_VALUES,
+            items: run_scores,
+            fill: move |&(name, statistic, value): &(&'static str, &'static str, Option<f64>),
+                        out: &mut Vec<Value<'a>>| {
+                out.extend([
+                    Value::Uuid(run_id),
+                    Value::Str(name),
+                    Value::Str(statistic),
+                    Value::float(value),
+                ]);
+            },
+        }),
+        Box::new(Listed {
+            table: &FOLD_REGIONS,
+            items: regions,
+            fill: move |&(repetition, index): &(usize, usize), out: &mut Vec<Value<'a>>| {
+                let region = &outcome.repetitions[repetition].folds.regions[index];
+                out.extend([
+                    Value::Uuid(run_id),
+                    Value::Int(repetition as i64 + 1),
+                    Value::Int(i64::from(region.fold) + 1),
+                    Value::Str(region.kind),
+                    Value::Str(&region.label),
+                    Value::Int(i64::from(region.units)),
+                    Value::Int(i64::from(distance_srid)),
+                    Value::Geometry(&region.geometry),
+                ]);
+            },
+        }),
+        Box::new(Exclusions {
+            run_id,
+            data,
+            outcome,
+            starts: exclusions,
+            total: offset,
+        }),
+    ]
+}
+
+/// Rows given by a list of items and a function filling a row from one.
+struct Listed<T, F> {
+    table: &'static TableDef,
+    items: Vec<T>,
+    fill: F,
+}
+
+impl<'a, T, F> RowSource<'a> for Listed<T, F>
+where
+    F: Fn(&T, &mut Vec<Value<'a>>),
+{
+    fn table(&self) -> &'static TableDef {
+        self.table
+    }
+
+    fn len(&self) -> usize {
+        self.items.len()
+    }
+
+    fn fill(&self, row: usize, out: &mut Vec<Value<'a>>) {
+        out.clear();
+        (self.fill)(&self.items[row], out);
+    }
+}
+
+/// `held_out`: unit-major within each repetition.
+struct HeldOut<'a> {
+    run_id: Uuid,
+    data: &'a Dataset,
+    outcome: &'a RunOutcome,
+}
+
+impl<'a> RowSource<'a> for HeldOut<'a> {
+    fn table(&self) -> &'static TableDef {
+        &HELD_OUT
+    }
+
+    fn len(&self) -> usize {
+        self.data.len() * self.outcome.repetitions.len()
+    }
+
+    fn fill(&self, row: usize, out: &mut Vec<Value<'a>>) {
+        let n = self.data.len();
+        let (repetition, unit) = (row / n, row % n);
+        let rep = &self.outcome.repetitions[repetition];
+        out.clear();
+        out.extend([
+            Value::Uuid(self.run_id),
+            Value::Int(repetition as i64 + 1),
+            Value::Int(i64::from(rep.folds.fold_of[unit]) + 1),
+            Value::Float(self.data.target[unit]),
+            Value::Float(rep.predicted[unit]),
+            Value::Id(&self.data.ids[unit]),
+        ]);
+    }
+}
+
+/// `unit_summaries`: only for runs with more than one repetition.
+struct Summaries<'a> {
+    run_id: Uuid,
+    data: &'a Dataset,
+    outcome: &'a RunOutcome,
+}
+
+impl<'a> RowSource<'a> for Summaries<'a> {
+    fn table(&self) -> &'static TableDef {
+        &UNIT_SUMMARIES
+    }
+
+    fn len(&self) -> usize {
+        if self.outcome.repetitions.len() > 1 {
+            self.data.len()
+        } else {
+            0
+        }
+    }
+
+    fn fill(&self, unit: usize, out: &mut Vec<Value<'a>>) {
+        let summary = unit_summary(self.data, self.outcome, unit);
+        out.clear();
+        out.extend([
+            Value::Uuid(self.run_id),
+            Value::Int(i64::from(self.outcome.repetitions[0].folds.fold_of[unit]) + 1),
+            Value::Float(self.data.target[unit]),
+            Value::Float(summary.mean_predicted),
+            Value::Float(summary.mae),
+            Value::Float(summary.rmse),
+            Value::Int(self.outcome.repetitions.len() as i64),
+            Value::Id(&self.data.ids[unit]),
+        ]);
+    }
+}
+
+/// `fold_exclusions`: `starts` holds, per fold of each repetition, the index
+/// of its first row.
+struct Exclusions<'a> {
+    run_id: Uuid,
+    data: &'a Dataset,
+    outcome: &'a RunOutcome,
+    starts: Vec<(usize, usize, usize)>,
+    total: usize,
+}
+
+impl<'a> RowSource<'a> for Exclusions<'a> {
+    fn table(&self) -> &'static TableDef {
+        &FOLD_EXCLUSIONS
+    }
+
+    fn len(&self) -> usize {
+        self.total
+    }
+
+    fn fill(&self, row: usize, out: &mut Vec<Value<'a>>) {
+        let at = self.starts.partition_point(|&(start, _, _)| start <= row) - 1;
+        let (start, repetition, fold) = self.starts[at];
+        let unit = self.outcome.repetitions[repetition]
+            .folds
+            .excluded_from(fold as u32)[row - start];
+        out.clear();
+        out.extend([
+            Value::Uuid(self.run_id),
+            Value::Int(repetition as i64 + 1),
+            Value::Int(fold as i64 + 1),
+            Value::Id(&self.data.ids[unit as usize]),
+        ]);
+    }
+}

@@ -1,0 +1,369 @@
+//! The run specification: everything a validation run needs, in one
+//! serialisable value that the command line, the demo and job files all
+//! build, and that the pipeline takes.
+//!
+//! [`RunSpec::check`] checks it in full without touching a database or a
+//! file, so a bad option never opens a connection for reading, and never
+//! leaves a run record behind.
+
+use std::path::PathBuf;
+use std::time::Duration;
+
+use serde::{Deserialize, Serialize};
+
+use crate::adapters::sql::check_identifier;
+use crate::adapters::{check_job, ColumnSpec};
+use crate::core::folds::{build_scheme, FoldScheme};
+use crate::core::models::{build_model, Model};
+use crate::core::options::Options;
+use crate::core::validate::check_repeats;
+use crate::error::Error;
+
+/// Where the units come from.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "store", rename_all = "lowercase")]
+pub enum SourceRef {
+    /// A PostGIS table.
+    Postgis {
+        /// libpq connection string; None for the PG* environment alone.
+        db: Option<String>,
+        /// `schema.table`, or `table` on the search path.
+        table: String,
+    },
+    /// A GeoPackage layer.
+    Gpkg {
+        /// The file.
+        file: PathBuf,
+        /// The layer; None when the file has one.
+        layer: Option<String>,
+    },
+}
+
+/// Where the results go.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "store", rename_all = "lowercase")]
+pub enum ResultsRef {
+    /// A PostGIS schema.
+    Postgis {
+        /// libpq connection string.
+        db: Option<String>,
+        /// The results schema.
+        schema: String,
+    },
+    /// A GeoPackage file.
+    Gpkg {
+        /// The file (created when missing).
+        file: PathBuf,
+    },
+}
+
+/// Bounds on every wait of a run.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Limits {
+    /// Longest wait for a lock held by another session or program, seconds.
+    pub lock_timeout_s: f64,
+    /// Longest any one database statement may run, seconds.
+    pub statement_timeout_s: f64,
+    /// Longest wait for another run of the same job to finish, seconds (0:
+    /// exit at once as busy).
+    pub wait_s: f64,
+}
+
+impl Default for Limits {
+    fn default() -> Limits {
+        Limits {
+            lock_timeout_s: DEFAULT_LOCK_TIMEOUT_S,
+            statement_timeout_s: DEFAULT_STATEMENT_TIMEOUT_S,
+            wait_s: 0.0,
+        }
+    }
+}
+
+/// Default `--lock-timeout`: 30 s.
+pub const DEFAULT_LOCK_TIMEOUT_S: f64 = 30.0;
+/// Default `--statement-timeout`: 1 h.
+pub const DEFAULT_STATEMENT_TIMEOUT_S: f64 = 3600.0;
+/// Largest wait any of the limits accepts: 1 day.
+pub const MAX_WAIT_S: f64 = 86_400.0;
+
+impl Limits {
+    /// `lock_timeout_s` as a duration.
+    pub fn lock_timeout(&self) -> Duration {
+        Duration::from_secs_f64(self.lock_timeout_s)
+    }
+
+    /// `statement_timeout_s` as a duration.
+    pub fn statement_timeout(&self) -> Duration {
+        Duration::from_secs_f64(self.statement_timeout_s)
+    }
+
+    /// `wait_s` as a duration.
+    pub fn wait(&self) -> Duration {
+        Duration::from_secs_f64(self.wait_s)
+    }
+}
+
+/// A validation run, fully specified.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RunSpec {
+    /// The units.
+    pub source: SourceRef,
+    /// Their columns.
+    pub columns: ColumnSpec,
+    /// Transform geometries to this projected SRID first (PostGIS only).
+    pub distance_srid: Option<i32>,
+    /// Treat coordinates of a layer without a CRS as metres.
+    pub assume_metres: bool,
+    /// A row that would be skipped is an error instead.
+    pub strict: bool,
+    /// The fold scheme's name.
+    pub scheme: String,
+    /// Its options.
+    pub scheme_options: Options,
+    /// The model family's name.
+    pub model: String,
+    /// Its options.
+    pub model_options: Options,
+    /// Exclusion buffer radius in CRS units, for any scheme.
+    pub exclusion_radius: Option<f64>,
+    /// Repetitions.
+    pub repeats: u32,
+    /// Seed of the fold assignment.
+    pub seed: u64,
+    /// Also run random k-fold on the same rows as a comparison run.
+    pub compare_random: bool,
+    /// Where the results go.
+    pub results: ResultsRef,
+    /// The job label; None for the default.
+    pub job: Option<String>,
+    /// Bounds on waits.
+    pub limits: Limits,
+}
+
+/// What checking a specification builds.
+pub struct Checked {
+    /// The fold scheme.
+    pub scheme: Box<dyn FoldScheme>,
+    /// The model.
+    pub model: Box<dyn Model>,
+}
+
+impl RunSpec {
+    /// Checks everything that can be checked without reading data: names,
+    /// option values and ranges, the scheme's and the model's options.
+    ///
+    /// # Errors
+    /// [`Error::Usage`] naming the option at fault.
+    pub fn check(&self) -> Result<Checked, Error> {
+        check_columns(&self.columns)?;
+        match (&self.source, &self.results) {
+            (SourceRef::Postgis { table, .. }, ResultsRef::Postgis { schema, .. }) => {
+                let (table_schema, name) = crate::adapters::sql::split_qualified(table);
+                if let Some(table_schema) = table_schema {
+                    check_identifier("--table (schema)", &table_schema)?;
+                }
+                check_identifier("--table", &name)?;
+                check_results_schema(schema)?;
+                for column in self.columns.id.iter().chain(&self.columns.geom) {
+                    check_identifier("a column name", column)?;
+                }
+            }
+            (SourceRef::Postgis { table, .. }, ResultsRef::Gpkg { file }) => {
+                return Err(Error::Usage(format!(
+                    "--results-gpkg needs a GeoPackage source (its per-unit layer copies the source geometries); \
+                     for {table} write the results to PostGIS (--results-schema) and copy them with \
+                     geofold export --job JOB --to {}",
+                    file.display()
+                )));
+            }
+            (SourceRef::Gpkg { .. }, ResultsRef::Postgis { .. }) => {
+                return Err(Error::Usage(
+                    "a GeoPackage source writes its results into a GeoPackage (its own file, or --results-gpkg)".into(),
+                ));
+            }
+            (SourceRef::Gpkg { .. }, ResultsRef::Gpkg { .. }) => {
+                if self.distance_srid.is_some() {
+                    return Err(Error::Usage(
+                        "--distance-srid needs PostGIS to transform; for a GeoPackage, reproject the file first \
+                         (for example ogr2ogr -t_srs EPSG:N out.gpkg in.gpkg)"
+                            .into(),
+                    ));
+                }
+            }
+        }
+        if let Some(srid) = self.distance_srid {
+            if srid <= 0 {
+                return Err(Error::Usage(format!(
+                    "--distance-srid must be a positive SRID, got {srid}"
+                )));
+            }
+        }
+        if let Some(job) = &self.job {
+            check_job(job)?;
+        }
+        check_repeats(self.repeats)?;
+        if let Some(radius) = self.exclusion_radius {
+            if !(radius.is_finite() && radius > 0.0 && radius <= 1e12) {
+                return Err(Error::Usage(format!(
+                    "--exclusion-radius must be a positive number of CRS units up to 1e12, got {radius}"
+                )));
+            }
+        }
+        for (option, value) in [
+            ("--lock-timeout", self.limits.lock_timeout_s),
+            ("--statement-timeout", self.limits.statement_timeout_s),
+        ] {
+            if !(value.is_finite() && value > 0.0 && value <= MAX_WAIT_S) {
+                return Err(Error::Usage(format!(
+                    "{option} must be a number of seconds above 0 and up to {MAX_WAIT_S}, got {value}"
+                )));
+            }
+        }
+        if !(self.limits.wait_s.is_finite() && (0.0..=MAX_WAIT_S).contains(&self.limits.wait_s)) {
+            return Err(Error::Usage(format!(
+                "--wait must be a number of seconds from 0 to {MAX_WAIT_S}, got {}",
+                self.limits.wait_s
+            )));
+        }
+        let scheme = build_scheme(&self.scheme, &self.scheme_options)?;
+        let model = build_model(&self.model, &self.model_options)?;
+        Ok(Checked { scheme, model })
+    }
+}
+
+/// Checks the target and feature names: none empty, no feature twice, the
+/// target not among the features.
+fn check_columns(columns: &ColumnSpec) -> Result<(), Error> {
+    if columns.target.trim().is_empty() {
+        return Err(Error::Usage("--target must name a column".into()));
+    }
+    if columns.features.is_empty() {
+        return Err(Error::Usage(
+            "--features must name at least one column".into(),
+        ));
+    }
+    let mut seen: Vec<String> = Vec::new();
+    for feature in &columns.features {
+        if feature.trim().is_empty() {
+            return Err(Error::Usage(
+                "--features has an empty entry (two commas in a row, or a trailing comma)".into(),
+            ));
+        }
+        if seen.iter().any(|s| s.eq_ignore_ascii_case(feature)) {
+            return Err(Error::Usage(format!("--features names {feature} twice")));
+        }
+        if feature.eq_ignore_ascii_case(&columns.target) {
+            return Err(Error::Usage(format!(
+                "{feature} is both the --target and one of the --features; a model cannot use what it predicts"
+            )));
+        }
+        seen.push(feature.clone());
+    }
+    Ok(())
+}
+
+/// Checks a results schema name: a PostgreSQL identifier that is not
+/// reserved for the system (`pg_…`).
+fn check_results_schema(schema: &str) -> Result<(), Error> {
+    check_identifier("--results-schema", schema)?;
+    if schema.starts_with("pg_") {
+        return Err(Error::Usage(format!(
+            "--results-schema {schema:?}: names starting with pg_ are reserved for PostgreSQL's system schemas"
+        )));
+    }
+    Ok(())
+}
+
+/// Trims the spaces around each name a user typed in a list.
+pub fn trimmed(names: &[String]) -> Vec<String> {
+    names.iter().map(|name| name.trim().to_string()).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn spec() -> RunSpec {
+        let mut scheme_options = Options::new();
+        scheme_options.insert("block-size".into(), 4000.into());
+        RunSpec {
+            source: SourceRef::Postgis {
+                db: None,
+                table: "hydro.units".into(),
+            },
+            columns: ColumnSpec {
+                id: None,
+                geom: None,
+                target: "y".into(),
+                features: vec!["a".into(), "b".into()],
+            },
+            distance_srid: None,
+            assume_metres: false,
+            strict: false,
+            scheme: "grid".into(),
+            scheme_options,
+            model: "ols".into(),
+            model_options: Options::new(),
+            exclusion_radius: None,
+            repeats: 1,
+            seed: 1,
+            compare_random: false,
+            results: ResultsRef::Postgis {
+                db: None,
+                schema: "geofold".into(),
+            },
+            job: None,
+            limits: Limits::default(),
+        }
+    }
+
+    fn refused(change: impl FnOnce(&mut RunSpec)) -> String {
+        let mut spec = spec();
+        change(&mut spec);
+        match spec.check() {
+            Ok(_) => panic!("accepted"),
+            Err(error) => {
+                assert_eq!(error.exit_code(), crate::error::exit::USAGE, "{error}");
+                error.to_string()
+            }
+        }
+    }
+
+    #[test]
+    fn a_good_spec_checks_and_survives_a_round_trip_through_json() {
+        let spec = spec();
+        assert!(spec.check().is_ok());
+        let text = serde_json::to_string(&spec).unwrap();
+        assert_eq!(serde_json::from_str::<RunSpec>(&text).unwrap(), spec);
+    }
+
+    #[test]
+    fn bad_names_and_options_are_refused_before_anything_is_opened() {
+        assert!(refused(|s| s.columns.features.push(String::new())).contains("empty entry"));
+        assert!(refused(|s| s.columns.features.push("a".into())).contains("twice"));
+        assert!(refused(|s| s.columns.features.push("y".into())).contains("both the --target"));
+        assert!(refused(|s| s.results = ResultsRef::Postgis {
+            db: None,
+            schema: "pg_temp".into()
+        })
+        .contains("reserved"));
+        assert!(refused(|s| s.results = ResultsRef::Postgis {
+            db: None,
+            schema: "s".repeat(64)
+        })
+        .contains("63 bytes"));
+        assert!(refused(|s| s.job = Some("j".repeat(60))).contains("at most"));
+        assert!(refused(|s| s.repeats = u32::MAX).contains("--repeats"));
+        assert!(refused(|s| s.exclusion_radius = Some(f64::NAN)).contains("--exclusion-radius"));
+        assert!(refused(|s| s.limits.lock_timeout_s = 0.0).contains("--lock-timeout"));
+        assert!(refused(|s| {
+            s.scheme_options.insert("block-size".into(), 0.into());
+        })
+        .contains("--block-size"));
+        assert!(refused(|s| {
+            s.scheme_options
+                .insert("folds".into(), 4_294_967_295u64.into());
+        })
+        .contains("--folds"));
+    }
+}
