@@ -863,6 +863,25 @@ fn errors_keep_their_cause_and_map_to_exit_codes() {
         "{error}"
     );
 
+    // A server that takes the connection but never answers: connect_timeout
+    // (libpq: "Maximum time to wait while connecting", minimum 2 s) ends it.
+    let silent = std::net::TcpListener::bind("127.0.0.1:0").expect("bind");
+    let silent_port = silent.local_addr().expect("address").port();
+    let error = refused(
+        connect(
+            &format!("host=127.0.0.1 port={silent_port} user=postgres connect_timeout=2"),
+            &[],
+            home.path(),
+        ),
+        "a server that never answers",
+    );
+    assert_eq!(error.exit_code(), exit::UNAVAILABLE);
+    assert!(
+        error.to_string().contains("timeout expired after 2 s"),
+        "{error}"
+    );
+    drop(silent);
+
     // Through the binary: exit codes and messages as a scheduler sees them.
     let workdir = Workdir::new();
     let geofold = |db: &str, retry: &str| {
