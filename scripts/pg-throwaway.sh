@@ -15,6 +15,15 @@
 # Environment knobs (all optional):
 #   PG_THROWAWAY_DB          database name to create (default geofold_test)
 #   PG_THROWAWAY_EXTRA_OPTS  extra server options appended to pg_ctl -o, e.g. "-c max_connections=300"
+#   PG_THROWAWAY_TLS=off     start without TLS (no certificate, ssl=off)
+#   PG_THROWAWAY_SERVER_CERT, PG_THROWAWAY_SERVER_KEY
+#                            PEM files to serve instead of a fresh self-signed certificate
+#                            (e.g. one signed by a CA a test made); both or neither
+#   PG_THROWAWAY_CLIENT_CA   PEM file of the CA(s) whose client certificates the server accepts
+#                            (ssl_ca_file), for pg_hba.conf "cert" lines
+#   PG_THROWAWAY_HBA         file of pg_hba.conf lines put before the default ones once the
+#                            database is set up; the server then reloads. The default lines
+#                            (trust on 127.0.0.1) still apply to roles the file does not match.
 #
 # The file can also be sourced; it then only defines functions (pgt_*).
 
@@ -180,13 +189,29 @@ pgt_start() {
 
     # A self-signed certificate so tests can check that sslmode=require encrypts.
     local ssl_opts=""
-    if command -v openssl >/dev/null 2>&1 \
+    if [ "${PG_THROWAWAY_TLS:-on}" = off ]; then
+        pgt_log "TLS off (PG_THROWAWAY_TLS=off)"
+    elif [ -n "${PG_THROWAWAY_SERVER_CERT:-}" ] || [ -n "${PG_THROWAWAY_SERVER_KEY:-}" ]; then
+        [ -r "${PG_THROWAWAY_SERVER_CERT:-}" ] && [ -r "${PG_THROWAWAY_SERVER_KEY:-}" ] \
+            || pgt_die "PG_THROWAWAY_SERVER_CERT and PG_THROWAWAY_SERVER_KEY must both name readable files"
+        # Read as ourselves, written as the server's user, so its ownership is right.
+        pgt_as_pg tee "$dir/data/server.crt" <"$PG_THROWAWAY_SERVER_CERT" >/dev/null \
+            && pgt_as_pg tee "$dir/data/server.key" <"$PG_THROWAWAY_SERVER_KEY" >/dev/null \
+            && pgt_as_pg chmod 0600 "$dir/data/server.key" \
+            || pgt_die "cannot install the server certificate"
+        ssl_opts="-c ssl=on"
+    elif command -v openssl >/dev/null 2>&1 \
             && pgt_as_pg openssl req -new -x509 -nodes -days 2 -subj "/CN=localhost" \
                 -keyout "$dir/data/server.key" -out "$dir/data/server.crt" >"$dir/openssl.log" 2>&1; then
         pgt_as_pg chmod 0600 "$dir/data/server.key"
         ssl_opts="-c ssl=on"
     else
         pgt_log "no certificate could be made (openssl missing or failed): TLS stays off"
+    fi
+    if [ -n "${PG_THROWAWAY_CLIENT_CA:-}" ] && [ -n "$ssl_opts" ]; then
+        pgt_as_pg tee "$dir/data/client_ca.crt" <"$PG_THROWAWAY_CLIENT_CA" >/dev/null \
+            || pgt_die "cannot install PG_THROWAWAY_CLIENT_CA"
+        ssl_opts="$ssl_opts -c ssl_ca_file=client_ca.crt"
     fi
 
     local port attempt started=
@@ -220,6 +245,18 @@ pgt_start() {
     if ! pgt_psql "$port" "$db" -c 'CREATE EXTENSION IF NOT EXISTS postgis' >&2; then
         pgt_stop "$dir" >/dev/null 2>&1 || true
         pgt_die "CREATE EXTENSION postgis failed"
+    fi
+
+    if [ -n "${PG_THROWAWAY_HBA:-}" ]; then
+        if ! { cat "$PG_THROWAWAY_HBA" "$dir/data/pg_hba.conf" | pgt_as_pg tee "$dir/data/pg_hba.conf.new" >/dev/null \
+                && pgt_as_pg mv "$dir/data/pg_hba.conf.new" "$dir/data/pg_hba.conf" \
+                && pgt_psql "$port" postgres -c 'SELECT pg_reload_conf()' >/dev/null; }; then
+            pgt_stop "$dir" >/dev/null 2>&1 || true
+            pgt_die "installing PG_THROWAWAY_HBA failed"
+        fi
+        # The postmaster rereads the file on the signal; give it a moment.
+        sleep 0.5
+        pgt_log "pg_hba.conf: lines of $PG_THROWAWAY_HBA put first"
     fi
 
     local uri="postgresql://postgres@127.0.0.1:$port/$db"
@@ -305,7 +342,7 @@ pgt_main() {
         start) pgt_start "$@" ;;
         stop) pgt_stop "$@" ;;
         -h|--help|help)
-            sed -n '2,20p' "${BASH_SOURCE[0]}" | sed 's/^# \{0,1\}//' >&2 ;;
+            sed -n '2,30p' "${BASH_SOURCE[0]}" | sed 's/^# \{0,1\}//' >&2 ;;
         *)
             pgt_log "usage: $0 {ensure-packages | start DIR | stop DIR}"
             return 2 ;;

@@ -195,3 +195,80 @@ pub fn python_script(script: &str, args: &[&str], input: &str) -> String {
     );
     String::from_utf8(output.stdout).expect("UTF-8 from the reference script")
 }
+
+/// Runs SQL through psql against another server than the suite's (ON_ERROR_STOP)
+/// and returns stdout as [`psql`] does.
+pub fn psql_at(uri: &str, sql: &str) -> String {
+    let output = Command::new("psql")
+        .arg(uri)
+        .args(["-X", "-q", "-A", "-t", "-v", "ON_ERROR_STOP=1", "-c", sql])
+        .env_remove("PGSERVICE")
+        .env_remove("PGSSLMODE")
+        .env_remove("PGOPTIONS")
+        .output()
+        .expect("psql runs");
+    assert!(
+        output.status.success(),
+        "psql failed on {sql}:\n{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    String::from_utf8_lossy(&output.stdout)
+        .trim_end()
+        .to_string()
+}
+
+/// A throwaway cluster of its own, started by `scripts/pg-throwaway.sh` with
+/// the given knobs (`PG_THROWAWAY_TLS`, `PG_THROWAWAY_SERVER_CERT`, …) and
+/// stopped and removed when dropped, also when the test fails.
+pub struct Cluster {
+    /// The cluster's directory under /tmp.
+    pub dir: PathBuf,
+    /// `postgresql://postgres@127.0.0.1:PORT/geofold_test`.
+    pub uri: String,
+    /// Its TCP port on 127.0.0.1.
+    pub port: u16,
+}
+
+impl Cluster {
+    pub fn start(knobs: &[(&str, &str)]) -> Cluster {
+        let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("scripts/pg-throwaway.sh");
+        // /tmp, not TMPDIR: the postgres OS user must reach it and the socket path must stay short.
+        let dir = tempfile::Builder::new()
+            .prefix("geofold-pg.")
+            .tempdir_in("/tmp")
+            .expect("cluster dir")
+            .keep();
+        let output = Command::new("bash")
+            .arg(&script)
+            .arg("start")
+            .arg(&dir)
+            .envs(knobs.iter().copied())
+            .output()
+            .expect("pg-throwaway.sh runs");
+        let uri = String::from_utf8_lossy(&output.stdout).trim().to_string();
+        let port = uri
+            .rsplit_once(':')
+            .and_then(|(_, rest)| rest.split('/').next())
+            .and_then(|p| p.parse().ok())
+            .unwrap_or(0);
+        // Made before the checks, so a failed start is still cleaned up.
+        let cluster = Cluster { dir, uri, port };
+        assert!(
+            output.status.success() && cluster.port != 0,
+            "starting a cluster failed:\n{}",
+            String::from_utf8_lossy(&output.stderr)
+        );
+        cluster
+    }
+}
+
+impl Drop for Cluster {
+    fn drop(&mut self) {
+        let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("scripts/pg-throwaway.sh");
+        let _ = Command::new("bash")
+            .arg(script)
+            .arg("stop")
+            .arg(&self.dir)
+            .output();
+    }
+}
