@@ -10,4 +10,5 @@ pub mod cli;
 pub mod core;
 pub mod demo;
 pub mod error;
+pub mod render;
 pub mod report;
