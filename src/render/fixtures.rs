@@ -157,3 +157,194 @@ pub fn grid_map(columns: u32, rows: u32, cell: f64, block: u32, folds: u32) -> M
         regions,
     }
 }
+
+use super::report::input::{
+    Better, Comparison, Correlogram, CorrelogramBin, FittedVariogram, FoldCoefficient, FoldScores,
+    Gate, HistoryPoint, NearestDistances, ReportInput, RunFacts, Score, ScoreDefinition,
+    ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin, VariogramModel,
+};
+
+fn score_list(rmse: f64, mae: f64, bias: f64) -> Vec<Score> {
+    vec![
+        Score {
+            name: "RMSE".to_string(),
+            value: rmse,
+        },
+        Score {
+            name: "MAE".to_string(),
+            value: mae,
+        },
+        Score {
+            name: "bias".to_string(),
+            value: bias,
+        },
+    ]
+}
+
+/// A report with only what every run has: settings and scores (four folds),
+/// no comparison and none of the optional diagnostics.
+pub fn minimal_report() -> ReportInput {
+    let setting = |name: &str, value: &str| Setting {
+        name: name.to_string(),
+        value: value.to_string(),
+    };
+    let folds = (1..=4u32)
+        .map(|fold| {
+            let f = f64::from(fold);
+            FoldScores {
+                repetition: 1,
+                fold,
+                n_train: 3,
+                n_test: 1,
+                scores: score_list(1.0 + 0.5 * f, 0.8 + 0.4 * f, 0.1 * f - 0.2),
+            }
+        })
+        .collect();
+    ReportInput {
+        run: RunFacts {
+            job: "invented-basin".to_string(),
+            run_id: "00000000-0000-4000-8000-000000000001".to_string(),
+            started: "2026-01-01 00:00:00 UTC".to_string(),
+            finished: Some("2026-01-01 00:00:02 UTC".to_string()),
+            tool_version: "0.1.0".to_string(),
+            source: "GeoPackage invented.gpkg, layer cells".to_string(),
+            crs: "EPSG:32631 WGS 84 / UTM zone 31N (metre)".to_string(),
+            target: "nitrate".to_string(),
+            target_unit: "mg/L".to_string(),
+            features: vec!["farmland_share".to_string(), "rainfall_mm".to_string()],
+            scheme: "grid blocks".to_string(),
+            scheme_settings: vec![
+                setting("block size", "1,000 m"),
+                setting("folds", "4"),
+                setting("repetitions", "1"),
+                setting("seed", "1"),
+            ],
+            model: "ordinary least squares".to_string(),
+            model_settings: Vec::new(),
+            units_used: 4,
+            units_skipped: vec![SkipReason {
+                reason: "target is missing".to_string(),
+                count: 2,
+            }],
+            fingerprint: "sha256:0123456789abcdef".to_string(),
+        },
+        scores: ScoreTable {
+            definitions: vec![
+                ScoreDefinition {
+                    name: "RMSE".to_string(),
+                    unit: "mg/L".to_string(),
+                    better: Better::Lower,
+                    description: "root mean squared error".to_string(),
+                },
+                ScoreDefinition {
+                    name: "MAE".to_string(),
+                    unit: "mg/L".to_string(),
+                    better: Better::Lower,
+                    description: "mean absolute error".to_string(),
+                },
+                ScoreDefinition {
+                    name: "bias".to_string(),
+                    unit: "mg/L".to_string(),
+                    better: Better::NearZero,
+                    description: "mean of predicted minus observed".to_string(),
+                },
+            ],
+            pooled: score_list(2.4, 1.8, 0.05),
+            baseline: score_list(3.0, 2.5, 0.0),
+            folds,
+        },
+        comparison: None,
+        coefficients: Vec::new(),
+        semivariogram: None,
+        correlogram: None,
+        nearest_distances: None,
+        history: Vec::new(),
+    }
+}
+
+/// [`minimal_report`] with every optional section filled with invented values:
+/// a random-fold comparison, coefficients, a semivariogram with a spherical
+/// model, a correlogram, nearest distances and a history of eight runs with a
+/// gate breached by the last two.
+pub fn full_report() -> ReportInput {
+    let mut report = minimal_report();
+    report.comparison = Some(Comparison {
+        label: "random 4-fold".to_string(),
+        run_id: "00000000-0000-4000-8000-000000000002".to_string(),
+        pooled: score_list(1.6, 1.2, 0.01),
+    });
+    for fold in 1..=4u32 {
+        let f = f64::from(fold);
+        for (term, value) in [
+            ("intercept", 10.0 + f),
+            ("farmland_share", 4.0 - f),
+            ("rainfall_mm", 0.02 * f),
+        ] {
+            report.coefficients.push(FoldCoefficient {
+                repetition: 1,
+                fold,
+                term: term.to_string(),
+                value,
+            });
+        }
+    }
+    let fitted = FittedVariogram {
+        model: VariogramModel::Spherical,
+        nugget: 0.5,
+        partial_sill: 2.0,
+        range: 1500.0,
+    };
+    report.semivariogram = Some(Semivariogram {
+        of: "the target".to_string(),
+        distance_unit: "m".to_string(),
+        bins: (1..=10u32)
+            .map(|i| {
+                let lag = 200.0 * f64::from(i);
+                VariogramBin {
+                    lag,
+                    gamma: fitted.gamma(lag) + 0.05 * f64::from(i % 3),
+                    pairs: 40 + 10 * u64::from(i),
+                }
+            })
+            .collect(),
+        fitted: Some(fitted),
+        advice: "The fitted range is about 1,500 m: blocks of at least that size keep test units apart from \
+                 correlated training units."
+            .to_string(),
+    });
+    report.correlogram = Some(Correlogram {
+        of: "residuals".to_string(),
+        distance_unit: "m".to_string(),
+        bins: (1..=6)
+            .map(|i| CorrelogramBin {
+                lag: 300.0 * f64::from(i),
+                morans_i: 0.6 - 0.15 * f64::from(i),
+                pairs: 100,
+                p_value: Some(0.001 * f64::from(i)),
+            })
+            .collect(),
+        note: String::new(),
+    });
+    report.nearest_distances = Some(NearestDistances {
+        distance_unit: "m".to_string(),
+        cross_validation: (0..200).map(|i| 100.0 + 5.0 * f64::from(i % 40)).collect(),
+        prediction: (0..150).map(|i| 300.0 + 9.0 * f64::from(i % 50)).collect(),
+    });
+    report.history = vec![ScoreHistory {
+        score: "RMSE".to_string(),
+        unit: "mg/L".to_string(),
+        points: (1..=8)
+            .map(|i| HistoryPoint {
+                run_id: format!("run-{i}"),
+                label: format!("2026-01-0{i}"),
+                value: 2.0 + 0.1 * f64::from(i),
+                breached: i >= 7,
+            })
+            .collect(),
+        gates: vec![Gate {
+            label: "RMSE at most 2.65 mg/L".to_string(),
+            value: 2.65,
+        }],
+    }];
+    report
+}

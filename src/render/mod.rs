@@ -15,11 +15,13 @@
 //! - [`shapes`]: geometry in pixels, simplified to the output resolution.
 //! - [`raster`]: dense layers as an embedded PNG.
 //! - [`style`], [`legend`]: how classes are painted and listed.
+//! - [`chart`]: small SVG charts for the report.
 //! - [`colour`]: sRGB, OKLab, CIELAB and CIEDE2000.
 //! - [`text`]: escaping and number formatting.
 //! - [`fixtures`]: invented map data for tests, examples and benchmarks.
 //! - [`error`]: the error type, [`RenderError`].
 
+pub mod chart;
 pub mod classify;
 pub mod colour;
 #[cfg(test)]
@@ -33,6 +35,7 @@ pub mod map;
 pub mod palette;
 pub mod png;
 pub mod raster;
+pub mod report;
 pub mod shapes;
 pub mod style;
 pub mod text;
