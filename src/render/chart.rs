@@ -78,10 +78,10 @@ pub struct XyChart {
     pub series: Vec<Series>,
 }
 
-const WIDTH: f64 = 640.0;
+const WIDTH: f64 = 720.0;
 const HEIGHT: f64 = 300.0;
 const LEFT: f64 = 64.0;
-const RIGHT: f64 = 150.0;
+const RIGHT: f64 = 210.0;
 const TOP: f64 = 16.0;
 const BOTTOM: f64 = 44.0;
 
