@@ -5,7 +5,7 @@
 //! - [`spec`]: the run specification; [`pipeline`]: the one pipeline that runs it.
 //! - [`results`]: one definition of every results table.
 //! - [`adapters`]: PostGIS and GeoPackage readers and result stores.
-//! - [`report`]: the summary, as text and JSON.
+//! - [`report`]: the summary, as text and JSON; [`render`]: maps and the HTML report.
 //! - [`cli`]: one module per subcommand.
 //! - [`demo`]: the invented demo scenario and its writers.
 
@@ -15,6 +15,7 @@ pub mod core;
 pub mod demo;
 pub mod error;
 pub mod pipeline;
+pub mod render;
 pub mod report;
 pub mod results;
 pub mod spec;
