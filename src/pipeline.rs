@@ -166,7 +166,9 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
         &info.target_column,
         &info.feature_columns,
         spec.strict,
-    );
+    )
+    .with_group(info.group_column.as_deref())
+    .with_exposure(info.exposure_column.as_deref());
     source.read(&mut collector)?;
     drop(source);
     let data = collector.finish(&info.id_column)?;
@@ -198,6 +200,8 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
     let input = SchemeInput {
         points: &data.points,
         index: &index,
+        groups: data.groups.as_ref(),
+        prediction_points: None,
     };
     let random = Random::new(
         checked

@@ -296,6 +296,8 @@ mod tests {
                 geom: None,
                 target: "y".into(),
                 features: vec!["a".into(), "b".into()],
+                group: None,
+                exposure: None,
             },
             distance_srid: None,
             assume_metres: false,

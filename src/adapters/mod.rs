@@ -36,6 +36,12 @@ pub struct ColumnSpec {
     pub target: String,
     /// Feature columns, in order.
     pub features: Vec<String>,
+    /// A group column (integer or text), for schemes that keep groups together.
+    #[serde(default)]
+    pub group: Option<String>,
+    /// An exposure column (e.g. a population), for count models.
+    #[serde(default)]
+    pub exposure: Option<String>,
 }
 
 /// What kind of coordinate reference system a layer has.
@@ -69,6 +75,10 @@ pub struct SourceInfo {
     pub target_column: String,
     /// Feature columns actually used.
     pub feature_columns: Vec<String>,
+    /// Group column actually used, if any.
+    pub group_column: Option<String>,
+    /// Exposure column actually used, if any.
+    pub exposure_column: Option<String>,
     /// Kind of the id column.
     pub id_kind: IdKind,
     /// The id column's own SQL type (`integer`, `bigint`, `text`, …), so job

@@ -100,6 +100,8 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
             geom: Some("geom".into()),
             target: DEMO_TARGET.into(),
             features: DEMO_FEATURES.iter().map(|s| s.to_string()).collect(),
+            group: None,
+            exposure: None,
         },
         distance_srid: None,
         assume_metres: false,

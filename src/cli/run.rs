@@ -49,6 +49,13 @@ pub struct SourceArgs {
     /// Feature columns (numeric), comma-separated.
     #[arg(long, value_name = "A,B,C", value_delimiter = ',', required = true)]
     pub features: Vec<String>,
+    /// Group column (integer or text, e.g. a district code): every unit of a group is kept in
+    /// one fold by --scheme group.
+    #[arg(long, value_name = "COLUMN")]
+    pub group_column: Option<String>,
+    /// Exposure column (e.g. a population at risk), for count models: its logarithm is the offset.
+    #[arg(long, value_name = "COLUMN")]
+    pub exposure_column: Option<String>,
     /// Transform geometries to this projected SRID (metres) before building folds
     /// (PostGIS ST_Transform, each row from its own SRID). Needed for longitude/latitude
     /// data, geography columns and columns that mix SRIDs.
@@ -195,6 +202,16 @@ impl RunArgs {
                 geom: self.source.geom.as_ref().map(|s| s.trim().to_string()),
                 target: self.source.target.trim().to_string(),
                 features: trimmed(&self.source.features),
+                group: self
+                    .source
+                    .group_column
+                    .as_ref()
+                    .map(|s| s.trim().to_string()),
+                exposure: self
+                    .source
+                    .exposure_column
+                    .as_ref()
+                    .map(|s| s.trim().to_string()),
             },
             distance_srid: self.source.distance_srid,
             assume_metres: self.source.assume_metres,

@@ -20,6 +20,8 @@ pub fn points_dataset(points: &[[f64; 2]]) -> Dataset {
         },
         rows_read: points.len() as u64,
         skipped: Skipped::default(),
+        groups: None,
+        exposure: None,
     }
 }
 
@@ -43,6 +45,8 @@ impl Points {
         SchemeInput {
             points: &self.points,
             index: &self.index,
+            groups: None,
+            prediction_points: None,
         }
     }
 }

@@ -180,6 +180,31 @@ pub struct Dataset {
     pub rows_read: u64,
     /// Skipped rows by reason, with their ids.
     pub skipped: Skipped,
+    /// Each unit's group, when a group column was read.
+    pub groups: Option<Groups>,
+    /// Each unit's exposure (e.g. a population at risk), when an exposure column was read.
+    pub exposure: Option<Vec<f64>>,
+}
+
+/// The group of each unit (e.g. a district code), as codes into sorted names.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Groups {
+    /// The group column.
+    pub column: String,
+    /// The distinct group values, sorted (bytewise).
+    pub names: Vec<String>,
+    /// Each unit's index into `names`, in dataset order.
+    pub codes: Vec<u32>,
+}
+
+/// The values of the extra columns of one row: a group and an exposure,
+/// each `None` when NULL (or not read).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Extras {
+    /// The group value, as text.
+    pub group: Option<String>,
+    /// The exposure.
+    pub exposure: Option<f64>,
 }
 
 /// Which geometry families the used units have, so writers can type their columns.
@@ -275,9 +300,26 @@ pub struct UnitCollector {
     rows_read: u64,
     id_kind: Option<IdKind>,
     geometry_kinds: GeometryKinds,
+    group_column: Option<String>,
+    exposure_column: Option<String>,
+    groups: Vec<String>,
+    exposure: Vec<f64>,
 }
 
 impl UnitCollector {
+    /// Also collects a group column (a row whose group is NULL is skipped).
+    pub fn with_group(mut self, column: Option<&str>) -> UnitCollector {
+        self.group_column = column.map(str::to_string);
+        self
+    }
+
+    /// Also collects an exposure column (a row whose exposure is NULL, NaN or
+    /// infinite is skipped).
+    pub fn with_exposure(mut self, column: Option<&str>) -> UnitCollector {
+        self.exposure_column = column.map(str::to_string);
+        self
+    }
+
     /// A collector for `table` (as the user named it) with these columns.
     /// With `strict`, every row that would be skipped becomes an error instead.
     pub fn new(
@@ -298,6 +340,10 @@ impl UnitCollector {
             rows_read: 0,
             id_kind: None,
             geometry_kinds: GeometryKinds::default(),
+            group_column: None,
+            exposure_column: None,
+            groups: Vec::new(),
+            exposure: Vec::new(),
         }
     }
 
@@ -318,6 +364,21 @@ impl UnitCollector {
         geometry: RawGeometry,
         target: Option<f64>,
         features: &[Option<f64>],
+    ) -> Result<(), Error> {
+        self.push_with(id, geometry, target, features, Extras::default())
+    }
+
+    /// [`push`](Self::push) with the values of the extra columns.
+    ///
+    /// # Errors
+    /// As [`push`](Self::push).
+    pub fn push_with(
+        &mut self,
+        id: UnitId,
+        geometry: RawGeometry,
+        target: Option<f64>,
+        features: &[Option<f64>],
+        extras: Extras,
     ) -> Result<(), Error> {
         self.rows_read += 1;
         let kind = match id {
@@ -366,6 +427,34 @@ impl UnitCollector {
                 "feature is NULL, NaN or infinite",
             );
             return Ok(());
+        }
+        let m = self.feature_names.len();
+        if let Some(column) = self.group_column.clone() {
+            match extras.group {
+                Some(group) => self.groups.push(group),
+                None => {
+                    self.skip(id, Some(&column), 3 + m, "no group", "group is NULL");
+                    return Ok(());
+                }
+            }
+        }
+        if let Some(column) = self.exposure_column.clone() {
+            match extras.exposure {
+                Some(value) if value.is_finite() => self.exposure.push(value),
+                _ => {
+                    if self.group_column.is_some() {
+                        self.groups.pop();
+                    }
+                    self.skip(
+                        id,
+                        Some(&column),
+                        4 + m,
+                        "missing exposure",
+                        "exposure is NULL, NaN or infinite",
+                    );
+                    return Ok(());
+                }
+            }
         }
         match geometry {
             Geometry::Point(_) | Geometry::MultiPoint(_) => self.geometry_kinds.points = true,
@@ -440,6 +529,28 @@ impl UnitCollector {
                 features.extend_from_slice(&self.features[index * m..(index + 1) * m]);
             }
         }
+        let groups = self.group_column.map(|column| {
+            let mut names: Vec<String> = self.groups.clone();
+            names.sort_by(|a, b| a.as_bytes().cmp(b.as_bytes()));
+            names.dedup();
+            let codes = order
+                .iter()
+                .map(|&index| {
+                    names
+                        .binary_search_by(|name| name.as_bytes().cmp(self.groups[index].as_bytes()))
+                        .map(|code| code as u32)
+                        .unwrap_or(0)
+                })
+                .collect();
+            Groups {
+                column,
+                names,
+                codes,
+            }
+        });
+        let exposure = self
+            .exposure_column
+            .map(|_| order.iter().map(|&index| self.exposure[index]).collect());
         Ok(Dataset {
             ids,
             points,
@@ -450,6 +561,8 @@ impl UnitCollector {
             geometry_kinds: self.geometry_kinds,
             rows_read: self.rows_read,
             skipped: self.skipped,
+            groups,
+            exposure,
         })
     }
 }

@@ -34,7 +34,7 @@ use super::{blob, check_geopackage, file_error, open_file, quote, sqlite_error};
 use crate::adapters::{
     resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
 };
-use crate::core::units::{IdKind, RawGeometry, UnitCollector, UnitId};
+use crate::core::units::{Extras, IdKind, RawGeometry, UnitCollector, UnitId};
 use crate::error::{Error, FileProblem, Location};
 
 /// EPSG codes of common geographic 2D CRSs (longitude/latitude in degrees):
@@ -161,6 +161,8 @@ impl GpkgSource {
         ]
         .into_iter()
         .chain(columns.features.iter().map(String::as_str))
+        .chain(columns.group.as_deref())
+        .chain(columns.exposure.as_deref())
         .collect();
         let resolved = resolve_columns(
             &wanted,
@@ -173,7 +175,11 @@ impl GpkgSource {
             resolved[1].clone(),
             resolved[2].clone(),
         );
-        let feature_columns = resolved[3..].to_vec();
+        let m = columns.features.len();
+        let feature_columns = resolved[3..3 + m].to_vec();
+        let mut extra = resolved[3 + m..].iter().cloned();
+        let group_column = columns.group.as_ref().and_then(|_| extra.next());
+        let exposure_column = columns.exposure.as_ref().and_then(|_| extra.next());
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);
         let location = |column: &str| Location {
             table: display.clone(),
@@ -203,7 +209,10 @@ impl GpkgSource {
             ));
             IdKind::Integer
         };
-        for name in std::iter::once(&target_column).chain(feature_columns.iter()) {
+        for name in std::iter::once(&target_column)
+            .chain(feature_columns.iter())
+            .chain(exposure_column.iter())
+        {
             if let Some(column) = find(name) {
                 let declared = base_type(&column.declared);
                 if !INTEGER_TYPES.contains(&declared.as_str())
@@ -226,8 +235,13 @@ impl GpkgSource {
             .chain(feature_columns.iter())
             .map(|name| quote(name))
             .collect();
+        let extras: String = group_column
+            .iter()
+            .chain(exposure_column.iter())
+            .map(|name| format!(", {}", quote(name)))
+            .collect();
         let select = format!(
-            "SELECT {}, {}, {}, rowid FROM {}",
+            "SELECT {}, {}, {}, rowid{extras} FROM {}",
             quote(&id_column),
             quote(&geom_column),
             numbers.join(", "),
@@ -264,6 +278,8 @@ impl GpkgSource {
             geom_column,
             target_column,
             feature_columns,
+            group_column,
+            exposure_column,
             id_kind,
             id_type,
             source_srid: srs_id,
@@ -311,6 +327,8 @@ struct Batch {
     /// Per row, the byte range of its blob in `bytes` (None for NULL).
     geometries: Vec<Option<(usize, usize)>>,
     bytes: Vec<u8>,
+    /// Per row, the values of the extra columns (group, exposure).
+    extras: Vec<Extras>,
 }
 
 /// Rows per batch.
@@ -335,7 +353,7 @@ impl Source for GpkgSource {
             let reader = RowReader::new(info);
             let mut consumed = Ok(());
             for batch in receiver {
-                consumed = batch.and_then(|batch| {
+                consumed = batch.and_then(|mut batch| {
                     for (row, id) in batch.ids.into_iter().enumerate() {
                         let geometry = match batch.geometries[row] {
                             None => RawGeometry::Null,
@@ -351,7 +369,8 @@ impl Source for GpkgSource {
                                 })?,
                         };
                         let numbers = &batch.numbers[row * n_numbers..(row + 1) * n_numbers];
-                        collector.push(id, geometry, numbers[0], &numbers[1..])?;
+                        let extras = std::mem::take(&mut batch.extras[row]);
+                        collector.push_with(id, geometry, numbers[0], &numbers[1..], extras)?;
                     }
                     Ok(())
                 });
@@ -433,6 +452,34 @@ fn produce(
                 ))
             }
         };
+        let mut extras = Extras::default();
+        // After the id, geometry, target, features and rowid.
+        let mut next = 4 + info.feature_columns.len();
+        if let Some(column) = &info.group_column {
+            extras.group = match get(next)? {
+                ValueRef::Null => None,
+                ValueRef::Integer(value) => Some(value.to_string()),
+                ValueRef::Text(bytes) => Some(String::from_utf8_lossy(bytes).into_owned()),
+                other => {
+                    return Err(Error::input(
+                        &info.table,
+                        Some(column),
+                        Some(id.to_string()),
+                        format!(
+                            "group value {} is not an integer or a text",
+                            describe(other)
+                        ),
+                    ))
+                }
+            };
+            next += 1;
+        }
+        if let Some(column) = &info.exposure_column {
+            extras.exposure = number(get(next)?).map_err(|problem| {
+                Error::input(&info.table, Some(column), Some(id.to_string()), problem)
+            })?;
+        }
+        batch.extras.push(extras);
         batch.geometries.push(geometry);
         batch.ids.push(id);
         if batch.ids.len() == BATCH_ROWS {

@@ -15,7 +15,7 @@ use super::{database_error, quote_ident, split_qualified, Session};
 use crate::adapters::{
     resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
 };
-use crate::core::units::{IdKind, RawGeometry, UnitCollector, UnitId};
+use crate::core::units::{Extras, IdKind, RawGeometry, UnitCollector, UnitId};
 use crate::error::{Error, Location};
 
 /// A PostGIS table opened as a source.
@@ -141,6 +141,8 @@ impl PostgisSource {
         ]
         .into_iter()
         .chain(columns.features.iter().map(String::as_str))
+        .chain(columns.group.as_deref())
+        .chain(columns.exposure.as_deref())
         .collect();
         let resolved = resolve_columns(&wanted, &names, NameMatch::Postgres, &where_)?;
         let (id_column, geom_column, target_column) = (
@@ -148,7 +150,11 @@ impl PostgisSource {
             resolved[1].clone(),
             resolved[2].clone(),
         );
-        let feature_columns = resolved[3..].to_vec();
+        let m = columns.features.len();
+        let feature_columns = resolved[3..3 + m].to_vec();
+        let mut extra = resolved[3 + m..].iter().cloned();
+        let group_column = columns.group.as_ref().and_then(|_| extra.next());
+        let exposure_column = columns.exposure.as_ref().and_then(|_| extra.next());
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);
         let mut problems = Vec::new();
         let location = |column: &str| Location {
@@ -189,7 +195,25 @@ impl PostgisSource {
                 ),
             ));
         }
-        for name in std::iter::once(&target_column).chain(feature_columns.iter()) {
+        if let Some(group) = &group_column {
+            if let Some(column) = find(group) {
+                if !INTEGER_TYPES.contains(&column.type_name.as_str())
+                    && !TEXT_TYPES.contains(&column.type_name.as_str())
+                {
+                    problems.push((
+                        location(group),
+                        format!(
+                            "group column has type {}; it must be an integer or text type",
+                            column.formatted
+                        ),
+                    ));
+                }
+            }
+        }
+        for name in std::iter::once(&target_column)
+            .chain(feature_columns.iter())
+            .chain(exposure_column.iter())
+        {
             if let Some(column) = find(name) {
                 if !NUMERIC_TYPES.contains(&column.type_name.as_str()) {
                     problems.push((
@@ -247,8 +271,15 @@ impl PostgisSource {
             .chain(feature_columns.iter())
             .map(|name| format!("{}::float8", quote_ident(name)))
             .collect();
+        let mut extras = String::new();
+        if let Some(group) = &group_column {
+            extras.push_str(&format!(", {}::text", quote_ident(group)));
+        }
+        if let Some(exposure) = &exposure_column {
+            extras.push_str(&format!(", {}::float8", quote_ident(exposure)));
+        }
         let select = format!(
-            "SELECT {id_expr}, {geom_expr}, {} FROM {qualified_table}",
+            "SELECT {id_expr}, {geom_expr}, {}{extras} FROM {qualified_table}",
             numbers.join(", ")
         );
         let info = SourceInfo {
@@ -260,6 +291,8 @@ impl PostgisSource {
             geom_column,
             target_column,
             feature_columns,
+            group_column,
+            exposure_column,
             id_kind,
             id_type,
             source_srid,
@@ -378,7 +411,17 @@ impl Source for PostgisSource {
                     let number = |index: usize| fields[index].and_then(read_float8);
                     values.clear();
                     values.extend((0..n_features).map(|j| number(3 + j)));
-                    collector.push(id, geometry, number(2), &values)
+                    let mut next = 3 + n_features;
+                    let mut extras = Extras::default();
+                    if info.group_column.is_some() {
+                        extras.group =
+                            fields[next].map(|bytes| String::from_utf8_lossy(bytes).into_owned());
+                        next += 1;
+                    }
+                    if info.exposure_column.is_some() {
+                        extras.exposure = number(next);
+                    }
+                    collector.push_with(id, geometry, number(2), &values, extras)
                 })?;
             }
             Ok(())

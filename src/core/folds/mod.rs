@@ -28,6 +28,7 @@ use serde::de::DeserializeOwned;
 
 use crate::core::neighbours::NeighbourIndex;
 use crate::core::options::{parse_options, Options};
+use crate::core::units::Groups;
 use crate::error::Error;
 
 /// What a scheme sees of the units.
@@ -36,6 +37,11 @@ pub struct SchemeInput<'a> {
     pub points: &'a [[f64; 2]],
     /// The neighbour index over `points`.
     pub index: &'a NeighbourIndex,
+    /// Each unit's group, when the run read a group column.
+    pub groups: Option<&'a Groups>,
+    /// Where the model will be used (prediction locations), in the distance
+    /// CRS, when the run names them.
+    pub prediction_points: Option<&'a [[f64; 2]]>,
 }
 
 /// The folds of one repetition.
@@ -341,6 +347,8 @@ mod tests {
         let input = SchemeInput {
             points: &points,
             index: &index,
+            groups: None,
+            prediction_points: None,
         };
         let mut set = FoldSet::plain(3, vec![0, 0, 1, 1, 2, 2]);
         exclude_within(&mut set, &input, 1.0);

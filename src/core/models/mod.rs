@@ -31,6 +31,8 @@ pub struct UnitView<'a> {
     pub features: &'a [f64],
     /// Representative point in the distance CRS.
     pub point: [f64; 2],
+    /// Exposure (e.g. a population at risk), when the run has an exposure column.
+    pub exposure: Option<f64>,
 }
 
 impl Dataset {
@@ -39,6 +41,7 @@ impl Dataset {
         UnitView {
             features: self.features_of(i),
             point: self.points[i],
+            exposure: self.exposure.as_ref().map(|e| e[i]),
         }
     }
 }

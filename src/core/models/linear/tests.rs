@@ -23,6 +23,8 @@ fn dataset(features: &[Vec<f64>], target: &[f64], points: &[[f64; 2]]) -> Datase
         geometry_kinds: GeometryKinds::default(),
         rows_read: target.len() as u64,
         skipped: Skipped::default(),
+        groups: None,
+        exposure: None,
     }
 }
 
