@@ -30,7 +30,7 @@ use serde_json::Value;
 
 /// Runs the reference script once per test (about a second).
 fn reference() -> Value {
-    if std::env::var_os("GEOFOLD_PYTHON").is_none() {
+    if std::env::var("GEOFOLD_PYTHON").map_or(true, |path| path.is_empty()) {
         panic!(
             "GEOFOLD_PYTHON is not set: run `bash scripts/test.sh`, or set it to the python \
              printed by `bash scripts/python-env.sh`"
