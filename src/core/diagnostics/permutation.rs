@@ -21,6 +21,12 @@
 //! The mean and the standard deviation (population, ddof = 0) of the permuted
 //! values and `z = (I − mean)/sd` are reported too.
 //!
+//! For regression residuals the test treats the residuals as exchangeable,
+//! which they are only approximately (they are correlated through the fit);
+//! for OLS residuals the regression moments of
+//! [`moran_residuals`](super::moran::moran_residuals) are the exact analytic
+//! alternative.
+//!
 //! # Reproducibility
 //! Permutation r (0-based) is a Fisher–Yates shuffle drawn from stream r of
 //! the seed ([`IndexStream`]), so the result depends on the seed, the values
