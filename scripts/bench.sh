@@ -5,9 +5,9 @@
 #
 # Builds an N-polygon table in a throwaway PostGIS (or in $GEOFOLD_BENCH_DB when set),
 # then, ROUNDS times, interleaved so machine drift hits both alike:
-#   floor   = psql streaming the same columns out with binary COPY to /dev/null
-#           + psql loading the same result rows (exported from geofold's own run)
-#             with binary COPY into empty tables of the same definition (indexes included);
+#   floor   = psql streaming id, geometry and the 5 numbers out with binary COPY to /dev/null
+#           + psql loading N rows of (run id, unit id, fold, observed, predicted), taken from
+#             geofold's own run, with binary COPY into an empty logged table;
 #   geofold = `geofold run` (grid, 10 folds, OLS, 4 features) on the same table,
 #             with its peak resident memory from GNU time.
 #   and the same job from a GeoPackage copy of the table (written by ogr2ogr) into a new
@@ -72,15 +72,10 @@ floor_read() {
 floor_write() {
   local start end
   q -c "DROP SCHEMA IF EXISTS bench_floor CASCADE; CREATE SCHEMA bench_floor;
-        CREATE TABLE bench_floor.runs (LIKE bench_results.runs INCLUDING ALL);
-        INSERT INTO bench_floor.runs SELECT * FROM bench_results.runs;" >/dev/null
-  for t in fold_members predictions unit_errors fold_scores run_scores blocks; do
-    q -c "CREATE TABLE bench_floor.$t (LIKE bench_results.$t INCLUDING ALL);" >/dev/null
-  done
+        CREATE TABLE bench_floor.rows (run_id uuid, unit_id bigint, fold integer,
+                                       observed double precision, predicted double precision);" >/dev/null
   start=$(date +%s.%N)
-  for t in fold_members predictions unit_errors fold_scores run_scores; do
-    q -c "\\copy bench_floor.$t FROM '$WORK/$t.copy' (FORMAT binary)"
-  done
+  q -c "\\copy bench_floor.rows FROM '$WORK/rows.copy' (FORMAT binary)"
   end=$(date +%s.%N)
   python3 -c "print(f'{$end - $start:.3f}')"
 }
@@ -88,9 +83,8 @@ floor_write() {
 echo "warm-up run (also produces the result rows the floor loads)" >&2
 run_geofold >/dev/null
 RUN_ID=$(python3 -c "import json; print(json.load(open('$WORK/run.json'))['runs'][0]['run_id'])")
-for t in fold_members predictions unit_errors fold_scores run_scores; do
-  q -c "\\copy (SELECT * FROM bench_results.$t WHERE run_id = '$RUN_ID') TO '$WORK/$t.copy' (FORMAT binary)"
-done
+q -c "\\copy (SELECT run_id, unit_id::bigint, fold, observed, predicted FROM bench_results.held_out WHERE run_id = '$RUN_ID') TO '$WORK/rows.copy' (FORMAT binary)"
+BYTES=$(q -At -c "SELECT pg_total_relation_size('bench_results.held_out') + pg_total_relation_size('bench_results.unit_summaries')")
 floor_read >/dev/null
 
 echo "GeoPackage: writing the same table with ogr2ogr" >&2
@@ -119,7 +113,7 @@ for r in $(seq 1 "$ROUNDS"); do
   echo "round $r: floor read ${reads[-1]} s + write ${writes[-1]} s; geofold $secs s, peak ${kb} KiB; from GeoPackage $gsecs s, peak ${gkb} KiB" >&2
 done
 
-python3 - "$N" "${reads[*]}" "${writes[*]}" "${runs[*]}" "${mems[*]}" "${gruns[*]:-}" "${gmems[*]:-}" <<'PY' | tee bench/last-run.txt
+python3 - "$N" "${reads[*]}" "${writes[*]}" "${runs[*]}" "${mems[*]}" "${gruns[*]:-}" "${gmems[*]:-}" "$BYTES" <<'PY' | tee bench/last-run.txt
 import statistics as st, sys, platform, os, subprocess
 n = int(sys.argv[1])
 f = lambda s: [float(x) for x in s.split()] if s.strip() else []
@@ -128,7 +122,9 @@ floor = [r + w for r, w in zip(reads, writes)]
 ratio = [g / fl for g, fl in zip(runs, floor)]
 cpu = next((l.split(':', 1)[1].strip() for l in open('/proc/cpuinfo') if l.startswith('model name')), '?')
 print(f"units: {n}; rounds: {len(runs)}; machine: {os.cpu_count()} cores, {cpu}")
-print(f"floor (COPY out + COPY in of the same rows), median: {st.median(floor):.2f} s "
+print(f"per-unit rows stored per run (held_out after the warm-up run, with its index): "
+      f"{int(sys.argv[8]) / n:.1f} bytes per unit")
+print(f"floor (binary COPY out of the source + binary COPY in of the per-unit rows), median: {st.median(floor):.2f} s "
       f"(read {st.median(reads):.2f} s + write {st.median(writes):.2f} s)")
 print(f"geofold run (PostGIS, grid, 10 folds, OLS, 4 features), median: {st.median(runs):.2f} s; "
       f"peak memory {max(mems) / 1024:.0f} MiB")
