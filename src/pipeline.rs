@@ -221,6 +221,7 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
         .map(|d| d.as_micros() as i64)
         .unwrap_or(0);
     let session = session_name();
+    let fingerprint = data.fingerprint();
     let mut planned: Vec<Planned<'_>> = Vec::new();
     for scheme in schemes {
         let plan = Plan {
@@ -249,6 +250,7 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
             folds: folds.first().map_or(0, |f| f.k),
             tool_version: env!("CARGO_PKG_VERSION").to_string(),
             session: session.clone(),
+            input_fingerprint: fingerprint.clone(),
         };
         planned.push(Planned {
             scheme,

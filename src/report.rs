@@ -211,7 +211,10 @@ impl Summary {
             units_used: data.len(),
             units_skipped: data.skipped.total(),
             skipped: data.skipped.clone(),
-            input_fingerprint: data.fingerprint(),
+            input_fingerprint: records
+                .first()
+                .map(|r| r.input_fingerprint.clone())
+                .unwrap_or_default(),
             runs,
             comparison,
             results,

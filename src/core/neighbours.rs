@@ -6,6 +6,11 @@
 //! O(n log n)). Distances are Euclidean in the units of the distance CRS
 //! (metres for a projected CRS). Results are deterministic: ties in distance
 //! are broken by the lower unit index, whatever order the tree holds them in.
+//! The tree is built on the first query, so a run whose scheme never asks
+//! (square blocks without a buffer) does not pay for it (about a quarter of a
+//! second at a million units, measured).
+
+use std::sync::OnceLock;
 
 use rstar::primitives::GeomWithData;
 use rstar::RTree;
@@ -15,7 +20,8 @@ type Entry = GeomWithData<[f64; 2], u32>;
 /// An index over points, answering radius and nearest-neighbour queries by
 /// point index (the position in the slice it was built from).
 pub struct NeighbourIndex {
-    tree: RTree<Entry>,
+    points: Vec<[f64; 2]>,
+    tree: OnceLock<RTree<Entry>>,
 }
 
 /// A neighbour found by a query: its index and its distance.
@@ -33,24 +39,33 @@ impl NeighbourIndex {
     /// # Panics
     /// Never for fewer than 2³² points; more is not supported (indices are u32).
     pub fn new(points: &[[f64; 2]]) -> NeighbourIndex {
-        let entries: Vec<Entry> = points
-            .iter()
-            .enumerate()
-            .map(|(index, point)| GeomWithData::new(*point, index as u32))
-            .collect();
         NeighbourIndex {
-            tree: RTree::bulk_load(entries),
+            points: points.to_vec(),
+            tree: OnceLock::new(),
         }
+    }
+
+    /// The tree, built on first use.
+    fn tree(&self) -> &RTree<Entry> {
+        self.tree.get_or_init(|| {
+            let entries: Vec<Entry> = self
+                .points
+                .iter()
+                .enumerate()
+                .map(|(index, point)| GeomWithData::new(*point, index as u32))
+                .collect();
+            RTree::bulk_load(entries)
+        })
     }
 
     /// Number of indexed points.
     pub fn len(&self) -> usize {
-        self.tree.size()
+        self.points.len()
     }
 
     /// True when no point is indexed.
     pub fn is_empty(&self) -> bool {
-        self.tree.size() == 0
+        self.points.is_empty()
     }
 
     /// Indices of the points at distance ≤ `radius` from `at` (the point
@@ -58,7 +73,7 @@ impl NeighbourIndex {
     /// squared distances: `dx² + dy² ≤ radius²`.
     pub fn within(&self, at: [f64; 2], radius: f64) -> Vec<u32> {
         let mut found: Vec<u32> = self
-            .tree
+            .tree()
             .locate_within_distance(at, radius * radius)
             .map(|entry| entry.data)
             .collect();
@@ -69,7 +84,7 @@ impl NeighbourIndex {
     /// Calls `visit(index)` for every point at distance ≤ `radius` of `at`,
     /// in no particular order (the allocation-free form of [`within`](Self::within)).
     pub fn for_each_within(&self, at: [f64; 2], radius: f64, mut visit: impl FnMut(u32)) {
-        for entry in self.tree.locate_within_distance(at, radius * radius) {
+        for entry in self.tree().locate_within_distance(at, radius * radius) {
             visit(entry.data);
         }
     }
@@ -83,7 +98,7 @@ impl NeighbourIndex {
         }
         let mut found: Vec<(f64, u32)> = Vec::with_capacity(k + 4);
         let mut kth = f64::INFINITY;
-        for (entry, distance_2) in self.tree.nearest_neighbor_iter_with_distance_2(&at) {
+        for (entry, distance_2) in self.tree().nearest_neighbor_iter_with_distance_2(&at) {
             if distance_2 > kth {
                 break;
             }

@@ -43,6 +43,8 @@ pub struct RunRecord {
     pub tool_version: String,
     /// The process running it (`host:pid`), for finding runs whose process is gone.
     pub session: String,
+    /// SHA-256 of the units used (see `Dataset::fingerprint`), computed once per run.
+    pub input_fingerprint: String,
 }
 
 /// A value of a results row.

@@ -551,7 +551,6 @@ fn write_runs(
         .map_err(|e| sqlite_error(path, "starting the transaction", &e))?;
     let mut counts = Vec::new();
     let mut layers = Vec::new();
-    let fingerprint = data.fingerprint();
     let skipped = data.skipped.counts_json().to_string();
     for run in runs {
         let mut unit_rows = None;
@@ -574,7 +573,13 @@ fn write_runs(
             "UPDATE runs SET status = 'succeeded', finished_at = strftime('%Y-%m-%dT%H:%M:%fZ', 'now'),
                 input_fingerprint = ?2, units_read = ?3, units_used = ?4, units_skipped = ?5
              WHERE run_id = ?1",
-            params![run.record.run_id.to_string(), fingerprint, data.rows_read as i64, data.len() as i64, skipped],
+            params![
+                run.record.run_id.to_string(),
+                run.record.input_fingerprint,
+                data.rows_read as i64,
+                data.len() as i64,
+                skipped
+            ],
         )
         .map_err(|e| sqlite_error(path, "marking the run succeeded", &e))?;
         if run.record.primary_run_id.is_none() {

@@ -522,7 +522,7 @@ async fn mark_succeeded(
         ),
         &[
             &run.record.run_id,
-            &data.fingerprint(),
+            &run.record.input_fingerprint,
             &(data.rows_read as i64),
             &(data.len() as i64),
             &data.skipped.counts_json(),
