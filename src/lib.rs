@@ -4,6 +4,7 @@
 //! - [`core`]: pure units, folds, models, metrics.
 //! - [`spec`]: the run specification; [`pipeline`]: the one pipeline that runs it.
 //! - [`results`]: one definition of every results table.
+//! - [`inspect`]: spatial diagnostics of a layer, stored beside the runs.
 //! - [`adapters`]: PostGIS and GeoPackage readers and result stores.
 //! - [`report`]: the summary, as text and JSON; [`render`]: maps and the HTML report.
 //! - [`cli`]: one module per subcommand.
@@ -14,6 +15,7 @@ pub mod cli;
 pub mod core;
 pub mod demo;
 pub mod error;
+pub mod inspect;
 pub mod pipeline;
 pub mod render;
 pub mod report;

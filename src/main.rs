@@ -33,6 +33,10 @@ fn main() {
             args.json,
             geofold::cli::demo::run(args).map(|(s, hint)| Output::Demo(s, hint)),
         ),
+        Command::Inspect(args) => (
+            args.json,
+            geofold::cli::inspect::run(args).map(|i| Output::Inspect(Box::new(i))),
+        ),
         Command::Export(args) => (
             args.json,
             geofold::cli::export::run(args).map(Output::Export),
@@ -45,6 +49,7 @@ enum Output {
     Summary(Summary),
     Demo(Summary, String),
     Export(geofold::cli::export::ExportReport),
+    Inspect(Box<geofold::inspect::Inspection>),
 }
 
 fn finish(json: bool, outcome: Result<Output, Error>) -> i32 {
@@ -61,6 +66,10 @@ fn finish(json: bool, outcome: Result<Output, Error>) -> i32 {
                     serde_json::to_string_pretty(report).unwrap_or_default()
                 }
                 (Output::Export(report), false) => report.to_text(),
+                (Output::Inspect(found), true) => {
+                    serde_json::to_string_pretty(found).unwrap_or_default()
+                }
+                (Output::Inspect(found), false) => found.to_text(),
             };
             // A closed pipe (geofold run … | head) is not a failure.
             let _ = writeln!(stdout, "{text}");

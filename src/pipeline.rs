@@ -22,6 +22,7 @@ use crate::adapters::gpkg::{GpkgSource, GpkgStore};
 use crate::adapters::postgis::read::PostgisSource;
 use crate::adapters::postgis::store::PostgisStore;
 use crate::adapters::postgis::Session;
+use crate::adapters::ColumnSpec;
 use crate::adapters::{default_job, CrsKind, ResultStore, Source, SourceInfo};
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
@@ -31,54 +32,59 @@ use crate::core::validate::{assign_folds, fit_and_score, Plan, RunOutcome};
 use crate::error::Error;
 use crate::report::Summary;
 use crate::results::rows::{FinishedRun, RunRecord};
-use crate::spec::{ResultsRef, RunSpec, SourceRef};
+use crate::spec::{Limits, ResultsRef, RunSpec, SourceRef};
 
-/// Opens the source a specification names.
+/// Opens a source.
 ///
 /// # Errors
 /// Connection errors; a missing table, layer or column; bad column types.
-pub fn open_source(spec: &RunSpec) -> Result<Box<dyn Source>, Error> {
-    Ok(match &spec.source {
+pub fn open_source(
+    source: &SourceRef,
+    columns: &ColumnSpec,
+    distance_srid: Option<i32>,
+    limits: &Limits,
+) -> Result<Box<dyn Source>, Error> {
+    Ok(match source {
         SourceRef::Postgis { db, table } => {
             let session = Session::connect(db.as_deref())?;
-            session.limit_waits(spec.limits.lock_timeout(), spec.limits.statement_timeout())?;
-            Box::new(PostgisSource::open(
-                session,
-                table,
-                &spec.columns,
-                spec.distance_srid,
-            )?)
+            session.limit_waits(limits.lock_timeout(), limits.statement_timeout())?;
+            Box::new(PostgisSource::open(session, table, columns, distance_srid)?)
         }
         SourceRef::Gpkg { file, layer } => {
-            Box::new(GpkgSource::open(file, layer.as_deref(), &spec.columns)?)
+            Box::new(GpkgSource::open(file, layer.as_deref(), columns)?)
         }
     })
 }
 
-/// Opens the results store a specification names.
+/// Opens a results store.
 ///
 /// # Errors
 /// Connection errors; a results file that cannot be written.
-pub fn open_store(spec: &RunSpec) -> Result<Box<dyn ResultStore>, Error> {
-    Ok(match &spec.results {
+pub fn open_store(results: &ResultsRef, limits: &Limits) -> Result<Box<dyn ResultStore>, Error> {
+    Ok(match results {
         ResultsRef::Postgis { db, schema } => {
             let session = Session::connect(db.as_deref())?;
-            session.limit_waits(spec.limits.lock_timeout(), spec.limits.statement_timeout())?;
+            session.limit_waits(limits.lock_timeout(), limits.statement_timeout())?;
             Box::new(PostgisStore::new(session, schema, db.as_deref()))
         }
-        ResultsRef::Gpkg { file } => Box::new(GpkgStore::open(file, spec.limits.lock_timeout())?),
+        ResultsRef::Gpkg { file } => Box::new(GpkgStore::open(file, limits.lock_timeout())?),
     })
 }
 
 /// The job label: the one given, or the default for the source (a layer's
 /// name with `_cv` when results go into the source's own GeoPackage, so the
 /// source layer is never replaced).
-pub fn job_of(spec: &RunSpec, info: &SourceInfo) -> String {
-    if let Some(job) = &spec.job {
-        return job.clone();
+pub fn job_of(
+    job: Option<&str>,
+    source: &SourceRef,
+    results: &ResultsRef,
+    info: &SourceInfo,
+) -> String {
+    if let Some(job) = job {
+        return job.to_string();
     }
     let job = default_job(&info.table);
-    match (&spec.source, &spec.results) {
+    match (source, results) {
         (SourceRef::Gpkg { file, .. }, ResultsRef::Gpkg { file: results }) if file == results => {
             let mut job = job;
             job.truncate(crate::adapters::MAX_JOB_LEN - 3);
@@ -88,10 +94,31 @@ pub fn job_of(spec: &RunSpec, info: &SourceInfo) -> String {
     }
 }
 
-/// Refuses a scheme that needs distances on a CRS in degrees or without
-/// units, saying how to fix the data.
-fn check_crs(spec: &RunSpec, info: &mut SourceInfo, scheme: &dyn FoldScheme) -> Result<(), Error> {
-    if !(scheme.needs_distances() || spec.exclusion_radius.is_some()) {
+/// Opens the source and checks that its CRS gives distances when
+/// `needs_distances` (see [`check_crs`]); returns the source and what was
+/// found when it was opened, with the CRS unit settled.
+///
+/// # Errors
+/// As [`open_source`] and [`check_crs`].
+pub fn open_checked(
+    source: &SourceRef,
+    columns: &ColumnSpec,
+    distance_srid: Option<i32>,
+    limits: &Limits,
+    needs_distances: bool,
+    assume_metres: bool,
+) -> Result<(Box<dyn Source>, SourceInfo), Error> {
+    let source = open_source(source, columns, distance_srid, limits)?;
+    let mut info = source.info().clone();
+    check_crs(needs_distances, assume_metres, &mut info)?;
+    Ok((source, info))
+}
+
+/// Refuses distances (`needed`) on a CRS in degrees or without units,
+/// saying how to fix the data; with `assume_metres`, a CRS without units is
+/// taken as metres.
+pub fn check_crs(needed: bool, assume_metres: bool, info: &mut SourceInfo) -> Result<(), Error> {
+    if !needed {
         return Ok(());
     }
     let what = format!("{}.{}", info.table, info.geom_column);
@@ -111,7 +138,7 @@ fn check_crs(spec: &RunSpec, info: &mut SourceInfo, scheme: &dyn FoldScheme) -> 
                 info.source_srid
             )))
         }
-        CrsKind::Undefined if spec.assume_metres => {
+        CrsKind::Undefined if assume_metres => {
             info.length_unit = Some("metre".into());
             Ok(())
         }
@@ -131,46 +158,25 @@ fn check_crs(spec: &RunSpec, info: &mut SourceInfo, scheme: &dyn FoldScheme) -> 
     }
 }
 
-/// `host:pid` of this process, recorded with its runs.
-fn session_name() -> String {
-    let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
-        .map(|h| h.trim().to_string())
-        .unwrap_or_else(|_| "localhost".into());
-    format!("geofold process {} on {host}", std::process::id())
-}
-
-/// One plan of a run: the primary scheme, or the random comparison.
-struct Planned<'a> {
-    scheme: &'a dyn FoldScheme,
-    record: RunRecord,
-    folds: Vec<FoldSet>,
-}
-
-/// Runs a specification.
+/// Reads and checks every row of the source.
 ///
 /// # Errors
-/// Any [`Error`]; see the module doc for what each leaves behind.
-pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
-    let checked = spec.check()?;
-    let mut source = open_source(spec)?;
-    let mut info = source.info().clone();
-    check_crs(spec, &mut info, checked.scheme.as_ref())?;
-    let job = job_of(spec, &info);
-    crate::adapters::check_job(&job)?;
-    let mut store = open_store(spec)?;
-    store.lock_job(&job, spec.limits.wait())?;
-
+/// Bad rows (every one listed), duplicate ids, no usable row.
+pub fn read_units(
+    source: &mut dyn Source,
+    info: &SourceInfo,
+    strict: bool,
+) -> Result<Dataset, Error> {
     let clock = std::time::Instant::now();
     let mut collector = UnitCollector::new(
         &info.table,
         &info.target_column,
         &info.feature_columns,
-        spec.strict,
+        strict,
     )
     .with_group(info.group_column.as_deref())
     .with_exposure(info.exposure_column.as_deref());
     source.read(&mut collector)?;
-    drop(source);
     let data = collector.finish(&info.id_column)?;
     if data.is_empty() {
         let reasons = data.skipped.describe();
@@ -195,6 +201,44 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "read units"
     );
+    Ok(data)
+}
+
+/// `host:pid` of this process, recorded with its runs.
+pub fn session_name() -> String {
+    let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
+        .map(|h| h.trim().to_string())
+        .unwrap_or_else(|_| "localhost".into());
+    format!("geofold process {} on {host}", std::process::id())
+}
+
+/// One plan of a run: the primary scheme, or the random comparison.
+struct Planned<'a> {
+    scheme: &'a dyn FoldScheme,
+    record: RunRecord,
+    folds: Vec<FoldSet>,
+}
+
+/// Runs a specification.
+///
+/// # Errors
+/// Any [`Error`]; see the module doc for what each leaves behind.
+pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
+    let checked = spec.check()?;
+    let (mut source, info) = open_checked(
+        &spec.source,
+        &spec.columns,
+        spec.distance_srid,
+        &spec.limits,
+        checked.scheme.needs_distances() || spec.exclusion_radius.is_some(),
+        spec.assume_metres,
+    )?;
+    let job = job_of(spec.job.as_deref(), &spec.source, &spec.results, &info);
+    crate::adapters::check_job(&job)?;
+    let mut store = open_store(&spec.results, &spec.limits)?;
+    store.lock_job(&job, spec.limits.wait())?;
+    let data = read_units(source.as_mut(), &info, spec.strict)?;
+    drop(source);
 
     let index = NeighbourIndex::new(&data.points);
     let input = SchemeInput {

@@ -21,9 +21,10 @@ use std::time::Duration;
 use serde::Serialize;
 use uuid::Uuid;
 
-use crate::core::units::{Dataset, IdKind, UnitCollector};
+use crate::core::diagnostics::contiguity::Contiguity;
+use crate::core::units::{Dataset, IdKind, UnitCollector, UnitId};
 use crate::error::Error;
-use crate::results::rows::{FinishedRun, RunRecord};
+use crate::results::rows::{FinishedRun, RowSource, RunRecord};
 
 /// The columns the user asked for.
 #[derive(Debug, Clone, PartialEq, Serialize, serde::Deserialize)]
@@ -132,6 +133,34 @@ pub trait Source {
     /// # Errors
     /// A row that cannot be decoded (its id named), or an I/O failure.
     fn read(&mut self, collector: &mut UnitCollector) -> Result<(), Error>;
+    /// The queen or rook contiguity of the units of `data` (which came from
+    /// this source), as pairs of indices into `data`, each pair once with the
+    /// lower index first. PostGIS computes it in the database; a GeoPackage in
+    /// geofold; both follow the DE-9IM rules of
+    /// [`contiguity`](crate::core::diagnostics::contiguity).
+    ///
+    /// # Errors
+    /// Geometries that are not polygons; database or file errors.
+    fn contiguity(&mut self, data: &Dataset, rule: Contiguity) -> Result<Vec<(u32, u32)>, Error>;
+}
+
+/// Turns pairs of source ids into sorted, unique pairs of dataset indices,
+/// leaving out ids the dataset does not hold (skipped rows).
+pub fn index_pairs(
+    data: &Dataset,
+    pairs: impl IntoIterator<Item = (UnitId, UnitId)>,
+) -> Vec<(u32, u32)> {
+    let index = |id: &UnitId| data.ids.binary_search(id).ok().map(|i| i as u32);
+    let mut found: Vec<(u32, u32)> = pairs
+        .into_iter()
+        .filter_map(|(a, b)| {
+            let (i, j) = (index(&a)?, index(&b)?);
+            (i != j).then(|| (i.min(j), i.max(j)))
+        })
+        .collect();
+    found.sort_unstable();
+    found.dedup();
+    found
 }
 
 /// A map layer a store made for a job.
@@ -227,6 +256,15 @@ pub trait ResultStore {
     ) -> Result<StoreReport, Error>;
     /// Marks the runs failed with the message (best effort: logs its own failure).
     fn fail(&mut self, records: &[RunRecord], message: &str);
+    /// Writes rows of results tables that belong to no run being written
+    /// (an inspection), in one transaction; returns the rows per table.
+    ///
+    /// # Errors
+    /// Database or file errors; nothing is written then.
+    fn write_rows(
+        &mut self,
+        rows: &[Box<dyn RowSource<'_> + '_>],
+    ) -> Result<Vec<(String, u64)>, Error>;
     /// The runs of a job (or of every job), newest first, at most `limit`.
     ///
     /// # Errors

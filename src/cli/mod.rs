@@ -3,6 +3,7 @@
 
 pub mod demo;
 pub mod export;
+pub mod inspect;
 pub mod run;
 
 use clap::{Parser, Subcommand};
@@ -58,4 +59,7 @@ pub enum Command {
     Demo(demo::DemoArgs),
     /// Copy one run's results (or a job's latest) from PostGIS into a GeoPackage.
     Export(export::ExportArgs),
+    /// Measure spatial autocorrelation of the target and of a model's residuals, the
+    /// semivariogram, and advise a block size and exclusion radius.
+    Inspect(Box<inspect::InspectArgs>),
 }

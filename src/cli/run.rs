@@ -155,27 +155,47 @@ pub struct RunArgs {
     pub limits: LimitArgs,
 }
 
+impl SourceArgs {
+    /// The source these options name.
+    ///
+    /// # Errors
+    /// [`Error::Usage`] when no source is named.
+    pub fn source_ref(&self) -> Result<SourceRef, Error> {
+        match (&self.table, &self.gpkg) {
+            (Some(table), None) => Ok(SourceRef::Postgis {
+                db: self.db.clone(),
+                table: table.clone(),
+            }),
+            (None, Some(file)) => Ok(SourceRef::Gpkg {
+                file: file.clone(),
+                layer: self.layer.clone(),
+            }),
+            _ => Err(Error::Usage(
+                "name a source: --table SCHEMA.TABLE (with --db) or --gpkg FILE".into(),
+            )),
+        }
+    }
+
+    /// The columns these options name, with the spaces users type around names removed.
+    pub fn columns(&self) -> ColumnSpec {
+        ColumnSpec {
+            id: self.id.as_ref().map(|s| s.trim().to_string()),
+            geom: self.geom.as_ref().map(|s| s.trim().to_string()),
+            target: self.target.trim().to_string(),
+            features: trimmed(&self.features),
+            group: self.group_column.as_ref().map(|s| s.trim().to_string()),
+            exposure: self.exposure_column.as_ref().map(|s| s.trim().to_string()),
+        }
+    }
+}
+
 impl RunArgs {
     /// The run specification these options describe.
     ///
     /// # Errors
     /// [`Error::Usage`] when no source is named.
     pub fn spec(&self) -> Result<RunSpec, Error> {
-        let source = match (&self.source.table, &self.source.gpkg) {
-            (Some(table), None) => SourceRef::Postgis {
-                db: self.source.db.clone(),
-                table: table.clone(),
-            },
-            (None, Some(file)) => SourceRef::Gpkg {
-                file: file.clone(),
-                layer: self.source.layer.clone(),
-            },
-            _ => {
-                return Err(Error::Usage(
-                    "name a source: --table SCHEMA.TABLE (with --db) or --gpkg FILE".into(),
-                ))
-            }
-        };
+        let source = self.source.source_ref()?;
         let results = match (&self.output.results_gpkg, &source) {
             (Some(file), _) => ResultsRef::Gpkg { file: file.clone() },
             (None, SourceRef::Gpkg { file, .. }) => ResultsRef::Gpkg { file: file.clone() },

@@ -345,6 +345,124 @@ pub const JOBS: TableDef = TableDef {
     ],
 };
 
+/// Inspections: `geofold inspect` records, one per inspection.
+pub const INSPECTIONS: TableDef = TableDef {
+    name: "inspections",
+    about: "geofold: one row per inspection (geofold inspect): spatial autocorrelation of a target and of a model's residuals, with the advice on block size and exclusion radius",
+    keying: Keying::Primary(&["inspection_id"]),
+    belongs_to_run: false,
+    columns: &[
+        col("inspection_id", RunId, "the inspection's id (the analysis_id of its diagnostics, semivariogram, variogram_fits and correlogram rows)"),
+        col("job", Text, "the job it advises"),
+        col("started_at", Timestamp, "when it ran"),
+        col("source_table", Text, "the source table or layer"),
+        col("target_column", Text, "the target column"),
+        col("feature_columns", Json, "the feature columns of the model whose residuals were examined"),
+        col("model", Text, "the model fitted to all units for the residuals"),
+        col("weights", Text, "the spatial weights: queen, rook, knn:K or band:DISTANCE"),
+        col("units", BigInt, "units examined"),
+        col("seed", BigInt, "seed of the permutations and pair samples"),
+        col("input_fingerprint", Text, "SHA-256 of the units examined, in id order"),
+        opt("fitted_range", Float, "effective range of the chosen semivariogram model of the residuals (CRS units)"),
+        opt("advised_block_size", Float, "recommended minimum block side (CRS units); NULL when no spatial structure was found"),
+        opt("advised_radius", Float, "recommended minimum exclusion radius (CRS units); NULL likewise"),
+        col("advice", Text, "the advice in plain words, with the figures and caveats it rests on"),
+        col("tool_version", Text, "the geofold version"),
+    ],
+};
+
+/// Moran's I of a target or of residuals, per run or inspection.
+pub const DIAGNOSTICS: TableDef = TableDef {
+    name: "diagnostics",
+    about: "geofold: global Moran's I of the target or of residuals (held-out residuals of a run, or full-data residuals of an inspection), with its moments under normality, under randomisation and for regression residuals, and a permutation p",
+    keying: Keying::Primary(&["analysis_id", "subject", "statistic", "weights"]),
+    belongs_to_run: false,
+    columns: &[
+        col("analysis_id", RunId, "run_id of a run (see runs) or inspection_id of an inspection (see inspections)"),
+        col("subject", Text, "target, residuals (full-data fit) or held_out_residuals (a run's held-out residuals)"),
+        col("statistic", Text, "morans_i"),
+        col("weights", Text, "the spatial weights: queen, rook, knn:K or band:DISTANCE (row-standardised)"),
+        col("n", BigInt, "units"),
+        col("islands", BigInt, "units without neighbours (rows of zero weight)"),
+        col("value", Float, "Moran's I"),
+        opt("expected_normal", Float, "E[I] under normality"),
+        opt("variance_normal", Float, "Var[I] under normality"),
+        opt("z_normal", Float, "z under normality"),
+        opt("p_normal", Float, "two-sided p under normality"),
+        opt("expected_random", Float, "E[I] under randomisation"),
+        opt("variance_random", Float, "Var[I] under randomisation"),
+        opt("z_random", Float, "z under randomisation"),
+        opt("p_random", Float, "two-sided p under randomisation"),
+        opt("expected_regression", Float, "E[I] for least-squares residuals (Cliff & Ord 1981)"),
+        opt("variance_regression", Float, "Var[I] for least-squares residuals"),
+        opt("z_regression", Float, "z for least-squares residuals"),
+        opt("p_regression", Float, "two-sided p for least-squares residuals"),
+        col("permutations", BigInt, "permutations of the permutation test (0: none)"),
+        opt("p_permutation", Float, "(M + 1)/(R + 1), M permuted values at or above the observed I"),
+    ],
+};
+
+/// The empirical semivariogram of residuals.
+pub const SEMIVARIOGRAM: TableDef = TableDef {
+    name: "semivariogram",
+    about: "geofold: the empirical semivariogram (Matheron estimator) by distance lag, with the chosen model's fitted value",
+    keying: Keying::Primary(&["analysis_id", "subject", "lag"]),
+    belongs_to_run: false,
+    columns: &[
+        col("analysis_id", RunId, "run_id of a run or inspection_id of an inspection"),
+        col("subject", Text, "residuals or target"),
+        col("lag", Int, "lag number, from 1"),
+        col("lower", Float, "lower edge of the lag (excluded), CRS units"),
+        col("upper", Float, "upper edge of the lag (included), CRS units"),
+        opt("mean_distance", Float, "mean distance of the lag's pairs"),
+        opt("semivariance", Float, "half the mean squared difference of the lag's pairs"),
+        col("pairs", BigInt, "pairs used (all pairs, or the sampled pairs beyond the exact limit)"),
+        opt("fitted", Float, "the chosen model's semivariance at the mean distance"),
+    ],
+};
+
+/// Fitted semivariogram models.
+pub const VARIOGRAM_FITS: TableDef = TableDef {
+    name: "variogram_fits",
+    about: "geofold: spherical and exponential semivariogram models fitted by weighted least squares (weights N/h²)",
+    keying: Keying::Primary(&["analysis_id", "subject", "model"]),
+    belongs_to_run: false,
+    columns: &[
+        col("analysis_id", RunId, "run_id of a run or inspection_id of an inspection"),
+        col("subject", Text, "residuals or target"),
+        col("model", Text, "spherical or exponential"),
+        col("nugget", Float, "nugget"),
+        col("partial_sill", Float, "partial sill"),
+        col("range_parameter", Float, "range parameter a"),
+        col("effective_range", Float, "range: a for spherical, the practical range 3a for exponential"),
+        col("r_squared", Float, "weighted R² of the fit"),
+        col("chosen", Int, "1 for the model the advice uses"),
+    ],
+};
+
+/// Moran's I by distance class.
+pub const CORRELOGRAM: TableDef = TableDef {
+    name: "correlogram",
+    about: "geofold: Moran's I by distance class (binary weights within each annulus)",
+    keying: Keying::Primary(&["analysis_id", "subject", "class"]),
+    belongs_to_run: false,
+    columns: &[
+        col(
+            "analysis_id",
+            RunId,
+            "run_id of a run or inspection_id of an inspection",
+        ),
+        col("subject", Text, "residuals or target"),
+        col("class", Int, "distance class, from 1"),
+        col("lower", Float, "lower edge (excluded), CRS units"),
+        col("upper", Float, "upper edge (included), CRS units"),
+        opt("mean_distance", Float, "mean pair distance"),
+        col("pairs", BigInt, "pairs"),
+        opt("morans_i", Float, "Moran's I of the class"),
+        opt("z_random", Float, "z under randomisation (exact pass only)"),
+    ],
+};
+
 /// Every table, in creation order (parents first).
 pub const TABLES: &[&TableDef] = &[
     &RUNS,
@@ -356,6 +474,11 @@ pub const TABLES: &[&TableDef] = &[
     &FOLD_REGIONS,
     &FOLD_EXCLUSIONS,
     &JOBS,
+    &INSPECTIONS,
+    &DIAGNOSTICS,
+    &SEMIVARIOGRAM,
+    &VARIOGRAM_FITS,
+    &CORRELOGRAM,
 ];
 
 /// The statistics of `run_score_values`.

@@ -64,6 +64,8 @@ pub enum Value<'a> {
     Float(f64),
     /// A multipolygon (its SRID is in the row's `srid` column).
     Geometry(&'a MultiPolygon<f64>),
+    /// A timestamp, Unix microseconds.
+    Timestamp(i64),
 }
 
 impl Value<'_> {
@@ -251,6 +253,18 @@ pub fn run_rows<'a>(
             total: offset,
         }),
     ]
+}
+
+/// Rows of `table` given by a list of items and a function filling a row from one.
+pub fn listed<'a, T: 'a, F>(
+    table: &'static TableDef,
+    items: Vec<T>,
+    fill: F,
+) -> Box<dyn RowSource<'a> + 'a>
+where
+    F: Fn(&T, &mut Vec<Value<'a>>) + 'a,
+{
+    Box::new(Listed { table, items, fill })
 }
 
 /// Rows given by a list of items and a function filling a row from one.

@@ -34,7 +34,8 @@ use super::{blob, check_geopackage, file_error, open_file, quote, sqlite_error};
 use crate::adapters::{
     resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
 };
-use crate::core::units::{Extras, IdKind, RawGeometry, UnitCollector, UnitId};
+use crate::core::diagnostics::contiguity::Contiguity;
+use crate::core::units::{Dataset, Extras, IdKind, RawGeometry, UnitCollector, UnitId};
 use crate::error::{Error, FileProblem, Location};
 
 /// EPSG codes of common geographic 2D CRSs (longitude/latitude in degrees):
@@ -337,6 +338,57 @@ const BATCH_ROWS: usize = 4096;
 impl Source for GpkgSource {
     fn info(&self) -> &SourceInfo {
         &self.info
+    }
+
+    /// Reads the geometries of the dataset's units again and finds their
+    /// neighbours in geofold (the GeoPackage has no spatial SQL).
+    fn contiguity(&mut self, data: &Dataset, rule: Contiguity) -> Result<Vec<(u32, u32)>, Error> {
+        let info = &self.info;
+        let conn = open_file(&self.path, false)?;
+        let reader = RowReader::new(info);
+        let mut geometries: Vec<Option<Geometry<f64>>> = vec![None; data.len()];
+        let select = format!(
+            "SELECT {}, {} FROM {}",
+            quote(&info.id_column),
+            quote(&info.geom_column),
+            quote(&info.qualified_table)
+        );
+        each_row(&conn, &self.path, info, &select, |row| {
+            let get = |index: usize| {
+                row.get_ref(index).map_err(|e| {
+                    sqlite_error(
+                        &self.path,
+                        &format!("reading layer {}", info.qualified_table),
+                        &e,
+                    )
+                })
+            };
+            let Ok(id) = reader.id(get(0)?) else {
+                return Ok(());
+            };
+            if let Ok(unit) = data.ids.binary_search(&id) {
+                if let Ok(RawGeometry::Decoded(geometry)) = reader.geometry(get(1)?) {
+                    geometries[unit] = Some(geometry);
+                }
+            }
+            Ok(())
+        })?;
+        let geometries: Vec<Geometry<f64>> = geometries
+            .into_iter()
+            .map(|g| {
+                g.unwrap_or(Geometry::GeometryCollection(GeometryCollection::new_from(
+                    Vec::new(),
+                )))
+            })
+            .collect();
+        crate::core::diagnostics::contiguity::contiguity_pairs(&geometries, rule).map_err(|error| {
+            Error::input(
+                &info.table,
+                Some(&info.geom_column),
+                None,
+                error.to_string(),
+            )
+        })
     }
 
     /// Streams the rows into the collector. One thread steps through SQLite

@@ -45,7 +45,19 @@ fn bind(
                 .map_err(|e| rusqlite::Error::ToSqlConversionFailure(Box::new(e)))?;
             statement.raw_bind_parameter(at, encoded)
         }
+        Value::Timestamp(micros) => statement.raw_bind_parameter(at, iso_timestamp(*micros)),
     }
+}
+
+/// Unix microseconds as the GeoPackage DATETIME text `YYYY-MM-DDTHH:MM:SS.SSSZ`.
+pub(crate) fn iso_timestamp(micros: i64) -> String {
+    let format = time::macros::format_description!(
+        "[year]-[month]-[day]T[hour]:[minute]:[second].[subsecond digits:3]Z"
+    );
+    time::OffsetDateTime::from_unix_timestamp_nanos(i128::from(micros) * 1000)
+        .ok()
+        .and_then(|t| t.format(&format).ok())
+        .unwrap_or_default()
 }
 
 /// Inserts rows one at a time into a table, [`ROWS_PER_INSERT`] to a statement.

@@ -28,7 +28,7 @@ use super::{check_geopackage, file_error, open_file, sqlite_error, tables};
 use crate::adapters::{add_count, ResultStore, SourceInfo, StoreReport, StoredRun};
 use crate::core::units::Dataset;
 use crate::error::{Error, FileProblem};
-use crate::results::rows::{run_rows, FinishedRun, RunRecord};
+use crate::results::rows::{run_rows, FinishedRun, RowSource, RunRecord};
 
 /// A GeoPackage results store.
 pub struct GpkgStore {
@@ -40,6 +40,19 @@ pub struct GpkgStore {
 }
 
 impl GpkgStore {
+    /// A new file's first write committed: moved into place and reopened.
+    fn finish_new_file(&mut self, path: &std::path::Path) -> Result<(), Error> {
+        if let Some(file) = self.new_file.take() {
+            let conn = self
+                .conn
+                .take()
+                .ok_or_else(|| Error::Internal("the new file has no connection".into()))?;
+            file.finish(conn)?;
+            self.conn = Some(open_existing(path, self.lock_timeout)?);
+        }
+        Ok(())
+    }
+
     /// A store in the GeoPackage at `path`; the file is created by the first
     /// successful run when it does not exist. Locks held by other programs
     /// are waited for up to `lock_timeout`.
@@ -421,14 +434,7 @@ impl ResultStore for GpkgStore {
             }
         }
         let (rows_written, layers) = written?;
-        if let Some(file) = self.new_file.take() {
-            let conn = self
-                .conn
-                .take()
-                .ok_or_else(|| Error::Internal("the new file has no connection".into()))?;
-            file.finish(conn)?;
-            self.conn = Some(open_existing(&path, self.lock_timeout)?);
-        }
+        self.finish_new_file(&path)?;
         Ok(StoreReport {
             store: "gpkg",
             location: path.display().to_string(),
@@ -456,6 +462,32 @@ impl ResultStore for GpkgStore {
                 tracing::warn!(%error, "could not mark the run failed; the next run will");
             }
         }
+    }
+
+    fn write_rows(
+        &mut self,
+        rows: &[Box<dyn RowSource<'_> + '_>],
+    ) -> Result<Vec<(String, u64)>, Error> {
+        let path = self.path.clone();
+        let conn = self
+            .conn
+            .as_mut()
+            .ok_or_else(|| Error::Internal("write before prepare".into()))?;
+        let tx = conn
+            .transaction_with_behavior(TransactionBehavior::Immediate)
+            .map_err(|e| sqlite_error(&path, "starting the transaction", &e))?;
+        let mut counts = Vec::new();
+        for source in rows {
+            if source.is_empty() {
+                continue;
+            }
+            insert_rows(&tx, &path, source.as_ref())?;
+            add_count(&mut counts, source.table().name, source.len() as u64);
+        }
+        tx.commit()
+            .map_err(|e| sqlite_error(&path, "committing", &e))?;
+        self.finish_new_file(&path)?;
+        Ok(counts)
     }
 
     fn runs(&mut self, job: Option<&str>, limit: usize) -> Result<Vec<StoredRun>, Error> {

@@ -1,6 +1,6 @@
 //! The results tables in a GeoPackage: created from their one definition in
 //! [`crate::results`], upgraded in place from earlier versions (runs kept),
-//! and the derived views, registered as attribute tables.
+//! and the derived views (not registered in `gpkg_contents`, see `rebuild_views`).
 //!
 //! Attribute tables are registered in `gpkg_contents` with
 //! `data_type = 'attributes'` (clause 2.4); `fold_regions` is a feature table
@@ -22,7 +22,7 @@ use crate::results::ddl::{column_definitions, create_table, Dialect};
 use crate::results::{views, ColumnType, TableDef, FOLD_REGIONS, TABLES};
 
 /// The version of the results tables this geofold writes.
-pub const RESULTS_VERSION: i64 = 2;
+pub const RESULTS_VERSION: i64 = 3;
 
 /// The feature table a geometry results table becomes.
 pub fn feature_table(table: &TableDef) -> FeatureTable {
@@ -138,12 +138,15 @@ pub fn prepare(conn: &Connection, path: &Path, triggers: TriggerSet) -> Result<(
         });
     }
     if current < RESULTS_VERSION {
-        if current == 1 {
-            upgrade_from_v1(conn, path, triggers)?;
-        } else {
-            for table in TABLES {
+        // Later versions only add tables: every table not there yet is made,
+        // then version 1's data is carried over.
+        for table in TABLES {
+            if !schema::has_table(conn, "main", table.name).map_err(error)? {
                 create(conn, table, triggers).map_err(error)?;
             }
+        }
+        if current == 1 {
+            upgrade_from_v1(conn, path)?;
         }
         conn.execute(
             "INSERT INTO schema_version (version, tool_version) VALUES (?1, ?2)",
@@ -191,7 +194,7 @@ fn rebuild_views(conn: &Connection, path: &Path) -> Result<(), Error> {
 /// the wide tables moved into the lean ones and dropped, the blocks moved to
 /// `fold_regions`, each job's `<job>_blocks` layer dropped (its
 /// `<job>_regions` comes with the job's next run).
-fn upgrade_from_v1(conn: &Connection, path: &Path, triggers: TriggerSet) -> Result<(), Error> {
+fn upgrade_from_v1(conn: &Connection, path: &Path) -> Result<(), Error> {
     let error =
         |e: rusqlite::Error| sqlite_error(path, "upgrading the results tables from version 1", &e);
     conn.execute_batch(
@@ -202,9 +205,6 @@ fn upgrade_from_v1(conn: &Connection, path: &Path, triggers: TriggerSet) -> Resu
          UPDATE runs SET model = coalesce(json_extract(parameters, '$.model.model'), 'ols');",
     )
     .map_err(error)?;
-    for table in TABLES.iter().filter(|t| t.name != "runs") {
-        create(conn, table, triggers).map_err(error)?;
-    }
     let scores = ["rmse", "mae", "bias", "r2"];
     let mut fold_values = Vec::new();
     let mut run_values =

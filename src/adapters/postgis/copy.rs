@@ -113,6 +113,13 @@ impl CopyEncoder {
         match value {
             Value::Null => self.null(),
             Value::Uuid(id) => self.uuid(id),
+            // Binary jsonb is a version byte (1) and the text (PostgreSQL
+            // jsonb_send).
+            Value::Str(text) if column.ty == ColumnType::Json => {
+                self.buffer.put_i32(text.len() as i32 + 1);
+                self.buffer.put_u8(1);
+                self.buffer.put_slice(text.as_bytes());
+            }
             Value::Str(text) => self.text(text),
             Value::Id(id) => self.unit_id(id),
             Value::Int(number) => match column.ty {
@@ -123,6 +130,7 @@ impl CopyEncoder {
             Value::Geometry(shape) => {
                 self.raw(&crate::adapters::wkb::multipolygon(shape, Some(srid)))
             }
+            Value::Timestamp(micros) => self.timestamptz(*micros),
         }
     }
 

@@ -3,7 +3,9 @@
 //! A new schema gets every table from its definition in [`crate::results`]
 //! (version [`RESULTS_VERSION`]). A schema made by an earlier geofold is
 //! upgraded in place, keeping its runs: version 1 (wide per-unit tables, one
-//! id type and one block SRID per schema) becomes version 2 by `sql/002_*.sql`.
+//! id type and one block SRID per schema) becomes version 2 by `sql/002_*.sql`;
+//! version 3 only adds tables (the inspection and diagnostics tables), and so
+//! does any later version: every table not yet there is made.
 //! The derived views are rebuilt whenever their definitions change
 //! (fingerprint in `store_settings`).
 //!
@@ -21,10 +23,10 @@ use super::{database_error, quote_ident, quote_literal, Session};
 use crate::error::Error;
 use crate::results::ddl::{create_table, Dialect};
 use crate::results::views;
-use crate::results::{TableDef, TABLES};
+use crate::results::TABLES;
 
 /// The version of the results tables this geofold writes.
-pub const RESULTS_VERSION: i32 = 2;
+pub const RESULTS_VERSION: i32 = 3;
 
 /// Version 1 → 2: data moved into the new tables, old tables dropped.
 const FROM_V1: &str = include_str!("../../../sql/002_from_v1.sql");
@@ -110,11 +112,12 @@ pub fn prepare_schema(session: &mut Session, schema: &str) -> Result<(), Error> 
             });
         }
         if current < RESULTS_VERSION {
-            let new_tables: Vec<&TableDef> = match current {
-                0 => TABLES.to_vec(),
-                _ => TABLES.iter().copied().filter(|t| t.name != "runs").collect(),
-            };
-            for table in new_tables {
+            // Later versions only add tables: every table not there yet is
+            // made, then version 1's data is carried over.
+            for table in TABLES {
+                if has_table(&tx, schema, table.name).await? {
+                    continue;
+                }
                 tx.batch_execute(&create_table(table, Dialect::Postgis, &quoted))
                     .await
                     .map_err(|e| database_error(&format!("{action}: creating {}", table.name), &e))?;

@@ -13,8 +13,10 @@ use geozero::ToGeo;
 use super::copy::{read_float8, read_int8, CopyDecoder};
 use super::{database_error, quote_ident, split_qualified, Session};
 use crate::adapters::{
-    resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
+    index_pairs, resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
 };
+use crate::core::diagnostics::contiguity::Contiguity;
+use crate::core::units::Dataset;
 use crate::core::units::{Extras, IdKind, RawGeometry, UnitCollector, UnitId};
 use crate::error::{Error, Location};
 
@@ -358,6 +360,52 @@ fn missing_table(
 impl Source for PostgisSource {
     fn info(&self) -> &SourceInfo {
         &self.info
+    }
+
+    fn contiguity(&mut self, data: &Dataset, rule: Contiguity) -> Result<Vec<(u32, u32)>, Error> {
+        let info = &self.info;
+        let (id, geom) = (quote_ident(&info.id_column), quote_ident(&info.geom_column));
+        let test = match rule {
+            Contiguity::Queen => format!("ST_Touches(a.{geom}, b.{geom})"),
+            Contiguity::Rook => format!("ST_Relate(a.{geom}, b.{geom}, 'F***1****')"),
+        };
+        let cast = match info.id_kind {
+            IdKind::Integer => "int8",
+            IdKind::Text => "text",
+        };
+        // The && operator lets the GiST index of the geometry column find the
+        // candidates (PostGIS manual, "Using Spatial Indexes").
+        let sql = format!(
+            "SELECT a.{id}::{cast}, b.{id}::{cast} FROM {t} a JOIN {t} b ON a.{geom} && b.{geom} AND a.{id} < b.{id} \
+             WHERE {test}",
+            t = info.qualified_table
+        );
+        let action = format!(
+            "finding the {} neighbours of {} in PostGIS",
+            rule.name(),
+            info.table
+        );
+        let rows = self
+            .session
+            .runtime
+            .block_on(self.session.client.query(sql.as_str(), &[]))
+            .map_err(|e| database_error(&action, &e))?;
+        let mut pairs = Vec::with_capacity(rows.len());
+        for row in rows {
+            let get = |e: tokio_postgres::Error| database_error(&action, &e);
+            let pair = match info.id_kind {
+                IdKind::Integer => (
+                    UnitId::Int(row.try_get(0).map_err(get)?),
+                    UnitId::Int(row.try_get(1).map_err(get)?),
+                ),
+                IdKind::Text => (
+                    UnitId::Text(row.try_get(0).map_err(get)?),
+                    UnitId::Text(row.try_get(1).map_err(get)?),
+                ),
+            };
+            pairs.push(pair);
+        }
+        Ok(index_pairs(data, pairs))
     }
 
     fn read(&mut self, collector: &mut UnitCollector) -> Result<(), Error> {

@@ -343,6 +343,32 @@ impl ResultStore for PostgisStore {
         }
     }
 
+    fn write_rows(
+        &mut self,
+        rows: &[Box<dyn RowSource<'_> + '_>],
+    ) -> Result<Vec<(String, u64)>, Error> {
+        let schema = self.schema.clone();
+        let runtime = &self.session.runtime;
+        let client = &mut self.session.client;
+        runtime.block_on(async {
+            let action = format!("writing to results schema {schema}");
+            let tx = client
+                .transaction()
+                .await
+                .map_err(|e| database_error(&action, &e))?;
+            let mut counts = Vec::new();
+            for source in rows {
+                if source.is_empty() {
+                    continue;
+                }
+                let written = copy_rows(&tx, &schema, source.as_ref(), 0).await?;
+                add_count(&mut counts, source.table().name, written);
+            }
+            tx.commit().await.map_err(|e| database_error(&action, &e))?;
+            Ok(counts)
+        })
+    }
+
     fn runs(&mut self, job: Option<&str>, limit: usize) -> Result<Vec<StoredRun>, Error> {
         let runs = self.qualified("runs");
         let scores = self.qualified("run_score_values");

@@ -232,8 +232,14 @@ pub fn round_up_two_digits(x: f64) -> f64 {
 
 impl Advice {
     /// The advice in plain words, with the figures and caveats, for a
-    /// terminal or a report. Distances are in the units of the CRS.
+    /// terminal or a report. Distances are bare numbers in the units of the CRS.
     pub fn render(&self) -> String {
+        self.render_with(&figure)
+    }
+
+    /// As [`Advice::render`], with distances written by `length` (which
+    /// knows the CRS unit, e.g. "7.1 km").
+    pub fn render_with(&self, length: &dyn Fn(f64) -> String) -> String {
         let mut text = String::from("Block size and exclusion buffer\n");
         match &self.basis {
             None => {
@@ -247,13 +253,13 @@ impl Advice {
                     text,
                     "  Residual autocorrelation range: {} ({} model: nugget {}, partial sill {}, \
                      weighted R² {:.3}; {} lags up to {}, {} units, {}).",
-                    figure(basis.range),
+                    length(basis.range),
                     basis.model.name(),
                     figure(basis.nugget),
                     figure(basis.partial_sill),
                     basis.r_squared,
                     basis.lags_used,
-                    figure(basis.cutoff),
+                    length(basis.cutoff),
                     basis.n,
                     if basis.exact {
                         "all pairs"
@@ -266,7 +272,7 @@ impl Advice {
                         let _ = writeln!(
                             text,
                             "  Recommended block size for grid folds: at least {}{}.",
-                            figure(block),
+                            length(block),
                             self.blocks_over_extent
                                 .map(|b| format!(" ({b} blocks over the bounding box)"))
                                 .unwrap_or_default()
@@ -274,7 +280,7 @@ impl Advice {
                         let _ = writeln!(
                             text,
                             "  Recommended exclusion buffer radius: at least {}.",
-                            figure(radius)
+                            length(radius)
                         );
                         text.push_str(
                             "  Why: blocks and buffers at least as large as the range of residual \

@@ -40,6 +40,16 @@ pub enum Contiguity {
     Rook,
 }
 
+impl Contiguity {
+    /// `queen` or `rook`.
+    pub fn name(self) -> &'static str {
+        match self {
+            Contiguity::Queen => "queen",
+            Contiguity::Rook => "rook",
+        }
+    }
+}
+
 /// The neighbour pairs `(i, j)`, `i < j`, ascending, of the polygons under
 /// `rule`; feed them to [`Weights::from_pairs`](super::weights::Weights::from_pairs).
 ///

@@ -1,0 +1,256 @@
+//! `geofold inspect` end to end, on both stores: the Columbus neighbourhoods
+//! (Anselin 1988, as shipped in libpysal 4.14.1; `tests/fixtures/columbus`)
+//! loaded with GDAL's ogr2ogr, CRIME ~ INC + HOVAL, and the stored Moran's I
+//! checked against esda 2.9.0 and spreg 1.9.0 (values in
+//! `../shared/REFERENCES.md` §2.3, computed there with those libraries and
+//! numpy, queen and rook contiguity, row-standardised).
+
+mod common;
+
+use common::{code, psql, psql_script, run, unique_name, Workdir};
+
+const COLUMBUS: &str = concat!(
+    env!("CARGO_MANIFEST_DIR"),
+    "/tests/fixtures/columbus/columbus.tsv"
+);
+
+/// esda 2.9.0 `Moran` of CRIME and of the OLS residuals, and spreg's
+/// regression-residual moments (REFERENCES.md §2.3): (weights, subject,
+/// I, z under normality, z under randomisation, z with regression moments).
+type Reference = (&'static str, &'static str, f64, f64, f64, Option<f64>);
+
+const EXPECTED: &[Reference] = &[
+    (
+        "queen",
+        "target",
+        0.5001885571828611,
+        5.630312787738188,
+        5.58938267504451,
+        None,
+    ),
+    (
+        "queen",
+        "residuals",
+        0.2221094065786734,
+        2.6253093010344615,
+        2.6521164508267066,
+        Some(2.8393189345136642),
+    ),
+    (
+        "rook",
+        "target",
+        0.5236702127502532,
+        5.497820514640764,
+        5.457880045909277,
+        None,
+    ),
+    (
+        "rook",
+        "residuals",
+        0.24986247924902633,
+        2.733199815404305,
+        2.7610896599606773,
+        Some(2.93678616084402),
+    ),
+];
+
+fn ogr2ogr(args: &[&str]) {
+    let output = std::process::Command::new("ogr2ogr")
+        .args(args)
+        .output()
+        .expect("ogr2ogr (gdal-bin) runs");
+    assert!(
+        output.status.success(),
+        "ogr2ogr {args:?} failed:\n{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+}
+
+/// The fixture's WKT column read by GDAL's CSV driver.
+fn columbus_args(out_format: &str, out: &str) -> Vec<String> {
+    [
+        "-f",
+        out_format,
+        out,
+        COLUMBUS,
+        "-oo",
+        "GEOM_POSSIBLE_NAMES=WKT",
+        "-oo",
+        "KEEP_GEOM_COLUMNS=NO",
+        "-oo",
+        "AUTODETECT_TYPE=YES",
+        "-nlt",
+        "POLYGON",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect()
+}
+
+fn inspect_args(weights: &str) -> Vec<String> {
+    [
+        "inspect",
+        "--target",
+        "CRIME",
+        "--features",
+        "INC,HOVAL",
+        // The fixture's coordinates have no CRS (arbitrary projected units).
+        "--assume-metres",
+        "--weights",
+        weights,
+        "--permutations",
+        "999",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect()
+}
+
+/// Compares one stored diagnostics row (I, z_normal, z_random, z_regression,
+/// p_permutation) with the reference.
+fn check_row(weights: &str, subject: &str, stored: [Option<f64>; 5]) {
+    let &(_, _, i, z_n, z_r, z_reg) = EXPECTED
+        .iter()
+        .find(|e| e.0 == weights && e.1 == subject)
+        .expect("reference row");
+    let close = |got: Option<f64>, want: f64, what: &str| {
+        let got = got.unwrap_or_else(|| panic!("{weights} {subject}: {what} missing"));
+        assert!(
+            (got - want).abs() <= 1e-9 * want.abs().max(1.0),
+            "{weights} {subject}: {what} {got} vs esda/spreg {want}"
+        );
+    };
+    close(stored[0], i, "I");
+    close(stored[1], z_n, "z under normality");
+    close(stored[2], z_r, "z under randomisation");
+    match z_reg {
+        Some(z) => close(stored[3], z, "z with regression moments"),
+        None => assert!(stored[3].is_none(), "{weights} {subject}: no regression z"),
+    }
+    // Seed-independent bounds from REFERENCES.md §2.3 ("robust permutation
+    // checks"): CRIME at the floor 1/(R+1), residuals at most 0.01.
+    let p = stored[4].expect("permutation p");
+    if subject == "target" {
+        assert!((p - 0.001).abs() < 1e-12, "{weights} target p {p}");
+    } else {
+        assert!(p <= 0.01, "{weights} residuals p {p}");
+    }
+}
+
+#[test]
+fn columbus_in_a_geopackage_matches_esda_and_spreg() {
+    let work = Workdir::new();
+    let source = work.path("columbus.gpkg");
+    let results = work.path("results.gpkg");
+    let mut load = columbus_args("GPKG", source.to_str().unwrap());
+    load.extend(["-nln".into(), "columbus".into()]);
+    ogr2ogr(&load.iter().map(String::as_str).collect::<Vec<_>>());
+    for weights in ["queen", "rook"] {
+        let mut command = work.geofold();
+        command
+            .args(inspect_args(weights))
+            .arg("--gpkg")
+            .arg(&source)
+            .arg("--results-gpkg")
+            .arg(&results);
+        let output = run(command);
+        assert_eq!(code(&output), 0);
+        let text = String::from_utf8_lossy(&output.stdout);
+        assert!(text.contains("Moran's I of the residuals: 0.2"), "{text}");
+        assert!(
+            text.contains("Recommended") || text.contains("No size"),
+            "{text}"
+        );
+    }
+    let conn = rusqlite::Connection::open(&results).unwrap();
+    let mut statement = conn
+        .prepare(
+            "SELECT weights, subject, value, z_normal, z_random, z_regression, p_permutation
+             FROM diagnostics ORDER BY weights, subject",
+        )
+        .unwrap();
+    let rows: Vec<(String, String, [Option<f64>; 5])> = statement
+        .query_map([], |row| {
+            Ok((
+                row.get(0)?,
+                row.get(1)?,
+                [
+                    row.get(2)?,
+                    row.get(3)?,
+                    row.get(4)?,
+                    row.get(5)?,
+                    row.get(6)?,
+                ],
+            ))
+        })
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert_eq!(rows.len(), 4, "two subjects × two weights");
+    for (weights, subject, stored) in rows {
+        check_row(&weights, &subject, stored);
+    }
+    // One inspection row per call, naming its advice; the semivariogram and
+    // both fitted models are stored beside it.
+    let inspections: i64 = conn
+        .query_row(
+            "SELECT count(*) FROM inspections WHERE advice <> ''",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(inspections, 2);
+    let fits: i64 = conn
+        .query_row(
+            "SELECT count(*) FROM variogram_fits f JOIN inspections i ON i.inspection_id = f.analysis_id",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert!(fits >= 2, "fits stored: {fits}");
+}
+
+#[test]
+fn columbus_in_postgis_matches_esda_and_spreg() {
+    let work = Workdir::new();
+    let schema = unique_name("columbus");
+    psql_script(&format!("CREATE SCHEMA {schema};"));
+    let target = format!("PG:{}", common::db_uri());
+    let mut load = columbus_args("PostgreSQL", &target);
+    load.extend([
+        "-lco".into(),
+        format!("SCHEMA={schema}"),
+        "-nln".into(),
+        "columbus".into(),
+    ]);
+    ogr2ogr(&load.iter().map(String::as_str).collect::<Vec<_>>());
+    let results = format!("{schema}_results");
+    for weights in ["queen", "rook"] {
+        let mut command = work.geofold();
+        command
+            .args(inspect_args(weights))
+            .args(["--db", &common::db_uri()])
+            .args(["--table", &format!("{schema}.columbus")])
+            .args(["--results-schema", &results]);
+        let output = run(command);
+        assert_eq!(code(&output), 0);
+    }
+    let text = psql(&format!(
+        "SELECT weights, subject, value, z_normal, z_random, coalesce(z_regression::text, ''), p_permutation
+         FROM {results}.diagnostics ORDER BY weights, subject"
+    ));
+    let rows: Vec<&str> = text.lines().collect();
+    assert_eq!(rows.len(), 4, "{text}");
+    for row in rows {
+        let f: Vec<&str> = row.split('|').collect();
+        let num = |s: &str| (!s.is_empty()).then(|| s.parse::<f64>().unwrap());
+        check_row(
+            f[0],
+            f[1],
+            [num(f[2]), num(f[3]), num(f[4]), num(f[5]), num(f[6])],
+        );
+    }
+    psql_script(&format!(
+        "DROP SCHEMA {schema} CASCADE; DROP SCHEMA {results} CASCADE;"
+    ));
+}
