@@ -46,64 +46,12 @@ use crate::core::options::Options;
 use crate::core::units::Dataset;
 use crate::error::Error;
 use crate::pipeline::{job_of, open_checked, open_store, read_units};
-use crate::results::rows::{listed, RowSource, Value};
-use crate::results::{CORRELOGRAM, DIAGNOSTICS, INSPECTIONS, SEMIVARIOGRAM, VARIOGRAM_FITS};
-use crate::spec::{Limits, ResultsRef, SourceRef};
+use crate::results::rows::{diagnostics_rows, listed, MoranRow, RowSource, Value};
+use crate::results::{CORRELOGRAM, INSPECTIONS, SEMIVARIOGRAM, VARIOGRAM_FITS};
+use crate::spec::{Limits, ResultsRef, SourceRef, WeightsRule};
 
 /// Largest number of permutations.
 pub const MAX_PERMUTATIONS: usize = 99_999;
-
-/// Spatial weights as named on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub enum WeightsRule {
-    /// Shared boundary point.
-    Queen,
-    /// Shared boundary edge.
-    Rook,
-    /// The k nearest units.
-    Nearest(usize),
-    /// Every unit within a distance.
-    Band(f64),
-}
-
-impl WeightsRule {
-    /// Parses `queen`, `rook`, `knn:K` or `band:DISTANCE`.
-    ///
-    /// # Errors
-    /// [`Error::Usage`] for anything else.
-    pub fn parse(text: &str) -> Result<WeightsRule, Error> {
-        let bad = || {
-            Error::Usage(format!(
-                "--weights {text:?}: use queen, rook, knn:K (K from 1 to 1000) or band:DISTANCE (CRS units)"
-            ))
-        };
-        match text.trim() {
-            "queen" => Ok(WeightsRule::Queen),
-            "rook" => Ok(WeightsRule::Rook),
-            other => match other.split_once(':') {
-                Some(("knn", k)) => match k.parse::<usize>() {
-                    Ok(k) if (1..=1000).contains(&k) => Ok(WeightsRule::Nearest(k)),
-                    _ => Err(bad()),
-                },
-                Some(("band", d)) => match d.parse::<f64>() {
-                    Ok(d) if d.is_finite() && d > 0.0 => Ok(WeightsRule::Band(d)),
-                    _ => Err(bad()),
-                },
-                _ => Err(bad()),
-            },
-        }
-    }
-
-    /// The name stored with the figures (`queen`, `knn:8`, `band:2500`).
-    pub fn name(&self) -> String {
-        match self {
-            WeightsRule::Queen => "queen".into(),
-            WeightsRule::Rook => "rook".into(),
-            WeightsRule::Nearest(k) => format!("knn:{k}"),
-            WeightsRule::Band(d) => format!("band:{d}"),
-        }
-    }
-}
 
 /// An inspection, fully specified.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -453,7 +401,23 @@ fn inspection_rows<'a>(
                 ]);
             },
         ),
-        diagnostics_rows(id, &record.weights, results, units),
+        diagnostics_rows(
+            id,
+            results
+                .iter()
+                .map(|r| MoranRow {
+                    subject: r.subject,
+                    weights: &record.weights,
+                    sampled_from: None,
+                    moran: &r.moran,
+                    regression: r.regression.as_ref().map(|g| g.inference),
+                    permutation: r
+                        .permutation
+                        .as_ref()
+                        .map(|p| (p.permutations, p.p_greater)),
+                })
+                .collect(),
+        ),
         listed(
             &SEMIVARIOGRAM,
             semivariogram.lags.iter().enumerate().collect(),
@@ -513,46 +477,6 @@ fn inspection_rows<'a>(
             },
         ),
     ]
-}
-
-/// `diagnostics` rows of Moran's I results, for a run or an inspection.
-pub fn diagnostics_rows<'a>(
-    id: Uuid,
-    weights: &'a str,
-    results: &'a [SubjectMoran],
-    units: i64,
-) -> Box<dyn RowSource<'a> + 'a> {
-    listed(
-        &DIAGNOSTICS,
-        results.iter().collect(),
-        move |r: &&SubjectMoran, out: &mut Vec<Value<'a>>| {
-            let m = &r.moran;
-            let regression = r.regression.as_ref().map(|g| g.inference);
-            out.extend([
-                Value::Uuid(id),
-                Value::Str(r.subject),
-                Value::Str("morans_i"),
-                Value::Str(weights),
-                Value::Int(units),
-                Value::Int(m.islands as i64),
-                Value::Float(m.statistic),
-                Value::float(Some(m.normality.expected)),
-                Value::float(Some(m.normality.variance)),
-                Value::float(Some(m.normality.z)),
-                Value::float(Some(m.normality.p_two_sided)),
-                Value::float(Some(m.randomisation.expected)),
-                Value::float(Some(m.randomisation.variance)),
-                Value::float(Some(m.randomisation.z)),
-                Value::float(Some(m.randomisation.p_two_sided)),
-                Value::float(regression.map(|g| g.expected)),
-                Value::float(regression.map(|g| g.variance)),
-                Value::float(regression.map(|g| g.z)),
-                Value::float(regression.map(|g| g.p_two_sided)),
-                Value::Int(r.permutation.as_ref().map_or(0, |p| p.permutations as i64)),
-                Value::float(r.permutation.as_ref().map(|p| p.p_greater)),
-            ]);
-        },
-    )
 }
 
 impl Inspection {

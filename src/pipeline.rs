@@ -23,7 +23,8 @@ use crate::adapters::postgis::read::PostgisSource;
 use crate::adapters::postgis::store::PostgisStore;
 use crate::adapters::postgis::Session;
 use crate::adapters::ColumnSpec;
-use crate::adapters::{default_job, CrsKind, ResultStore, Source, SourceInfo};
+use crate::adapters::{default_job, CrsKind, ResultStore, Source, SourceInfo, StoredInspection};
+use crate::core::diagnostics::held_out::HeldOutWeights;
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
 use crate::core::neighbours::NeighbourIndex;
@@ -304,6 +305,12 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
     }
 
     store.prepare(&info)?;
+    if let (Some(inspection), Some(primary)) = (store.last_inspection(&job)?, planned.first_mut()) {
+        let warnings = scale_warnings(&primary.record.parameters, &inspection, &|v| info.length(v));
+        for folds in &mut primary.folds {
+            folds.warnings.extend(warnings.iter().cloned());
+        }
+    }
     let records: Vec<RunRecord> = planned.iter().map(|p| p.record.clone()).collect();
     store.begin(&info, &records)?;
     let result = fit_and_write(spec, &checked, &info, &data, planned, store.as_mut());
@@ -345,6 +352,12 @@ fn fit_and_write(
     }
     tracing::info!(elapsed_ms = clock.elapsed().as_millis() as u64, "validated");
     let clock = std::time::Instant::now();
+    attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
+    tracing::info!(
+        elapsed_ms = clock.elapsed().as_millis() as u64,
+        "held-out residual Moran's I"
+    );
+    let clock = std::time::Instant::now();
     let finished: Vec<FinishedRun<'_>> = records
         .iter()
         .zip(&outcomes)
@@ -365,4 +378,73 @@ fn fit_and_write(
         spec.exclusion_radius,
         report,
     ))
+}
+
+/// A block size or exclusion radius below this share of the residual
+/// autocorrelation range of the job's last inspection is warned about.
+pub const WELL_BELOW_RANGE: f64 = 0.5;
+
+/// Warnings when the run's block size or exclusion radius (from its stored
+/// parameters) is well below the range found by the job's last inspection.
+fn scale_warnings(
+    parameters: &serde_json::Value,
+    inspection: &StoredInspection,
+    length: &dyn Fn(f64) -> String,
+) -> Vec<String> {
+    let range = inspection.fitted_range;
+    let sizes = [
+        ("block size", parameters["scheme"]["block-size"].as_f64()),
+        ("exclusion radius", parameters["exclusion-radius"].as_f64()),
+    ];
+    sizes
+        .into_iter()
+        .filter_map(|(what, size)| {
+            let size = size?;
+            (size < WELL_BELOW_RANGE * range).then(|| {
+                format!(
+                    "the {what} {} is well below the {} range of residual autocorrelation that the job's last \
+                     inspection found ({}, {}): held-out units sit close to units they resemble, so the scores \
+                     may be optimistic; see geofold inspect",
+                    length(size),
+                    length(range),
+                    inspection.inspection_id,
+                    inspection.started_at
+                )
+            })
+        })
+        .collect()
+}
+
+/// Moran's I of each run's held-out residuals, with the same weights for
+/// every run of the invocation; a run whose statistic cannot be computed
+/// (constant or missing residuals) gets a warning instead.
+fn attach_held_out_moran(
+    outcomes: &mut [RunOutcome],
+    data: &Dataset,
+    rule: &crate::spec::WeightsRule,
+    seed: u64,
+) {
+    let weights = rule
+        .for_points()
+        .map_err(|e| e.to_string())
+        .and_then(|point_rule| {
+            HeldOutWeights::new(&data.points, point_rule, &rule.name(), seed)
+                .map_err(|e| e.to_string())
+        });
+    for outcome in outcomes {
+        let result = weights.as_ref().map_err(Clone::clone).and_then(|w| {
+            w.moran(&outcome.held_out_residuals(&data.target))
+                .map_err(|e| e.to_string())
+        });
+        match result {
+            Ok(moran) => outcome.held_out_moran = Some(moran),
+            Err(problem) => {
+                if let Some(rep) = outcome.repetitions.first_mut() {
+                    rep.folds.warnings.push(format!(
+                        "Moran's I of the held-out residuals was not computed: {problem}"
+                    ));
+                }
+            }
+        }
+    }
 }

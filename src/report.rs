@@ -9,6 +9,7 @@ use std::fmt::Write as _;
 use serde::Serialize;
 
 use crate::adapters::{SourceInfo, StoreReport};
+use crate::core::diagnostics::held_out::HeldOutMoran;
 use crate::core::metrics::{score_def, Better, Scores, Spread};
 use crate::core::units::{Dataset, Skipped};
 use crate::core::validate::RunOutcome;
@@ -70,6 +71,8 @@ pub struct RunSummary {
     pub repeat_spread: Option<Vec<(&'static str, Spread)>>,
     /// The training-mean baseline on the same folds.
     pub baseline: Scores,
+    /// Moran's I of the held-out residuals, when it could be computed.
+    pub held_out_moran: Option<HeldOutMoran>,
     /// Per fold and repetition.
     pub folds: Vec<FoldSummary>,
 }
@@ -161,6 +164,7 @@ impl Summary {
                     fold_spread: outcome.fold_spread.clone(),
                     repeat_spread: outcome.repeat_spread.clone(),
                     baseline: outcome.baseline.clone(),
+                    held_out_moran: outcome.held_out_moran.clone(),
                     folds: outcome
                         .repetitions
                         .iter()
@@ -422,6 +426,26 @@ impl Summary {
                 spread.join("  ")
             );
         }
+        if let Some(held) = &run.held_out_moran {
+            let m = &held.moran;
+            let _ = writeln!(
+                out,
+                "  Moran's I of the held-out residuals ({}{}): {:.4} (E[I] {:.4}), z {:.2} under randomisation, p {}{}",
+                held.weights,
+                held.sampled_from
+                    .map(|total| format!(", a seeded sample of {} of {total} units", m.n))
+                    .unwrap_or_default(),
+                m.statistic,
+                m.randomisation.expected,
+                m.randomisation.z,
+                p_value(m.randomisation.p_two_sided),
+                if m.randomisation.p_two_sided < 0.05 && m.statistic > m.randomisation.expected {
+                    "; the errors are still spatially clustered"
+                } else {
+                    ""
+                }
+            );
+        }
         if let Some(r2) = run.pooled.get("r2") {
             if r2 < 0.0 {
                 let _ = writeln!(
@@ -474,5 +498,14 @@ fn number(value: f64) -> String {
         format!("{value:.3e}")
     } else {
         format!("{value:.4}")
+    }
+}
+
+/// A p-value for a terminal: four decimals, or "< 0.0001".
+fn p_value(p: f64) -> String {
+    if p < 1e-4 {
+        "< 0.0001".into()
+    } else {
+        format!("{p:.4}")
     }
 }

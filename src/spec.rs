@@ -138,6 +138,10 @@ pub struct RunSpec {
     pub job: Option<String>,
     /// Bounds on waits.
     pub limits: Limits,
+    /// Weights of the held-out residuals' Moran's I (`knn:K` or
+    /// `band:DISTANCE`); None for [`DEFAULT_RESIDUAL_WEIGHTS`].
+    #[serde(default)]
+    pub residual_weights: Option<String>,
 }
 
 /// What checking a specification builds.
@@ -146,6 +150,8 @@ pub struct Checked {
     pub scheme: Box<dyn FoldScheme>,
     /// The model.
     pub model: Box<dyn Model>,
+    /// Weights of the held-out residuals' Moran's I.
+    pub residual_weights: WeightsRule,
 }
 
 impl RunSpec {
@@ -225,11 +231,94 @@ impl RunSpec {
                 self.limits.wait_s
             )));
         }
+        let residual_weights = match &self.residual_weights {
+            Some(text) => WeightsRule::parse(text)?,
+            None => DEFAULT_RESIDUAL_WEIGHTS,
+        };
+        residual_weights.for_points()?;
         let scheme = build_scheme(&self.scheme, &self.scheme_options)?;
         let model = build_model(&self.model, &self.model_options)?;
-        Ok(Checked { scheme, model })
+        Ok(Checked {
+            scheme,
+            model,
+            residual_weights,
+        })
     }
 }
+
+/// Spatial weights as named on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub enum WeightsRule {
+    /// Shared boundary point.
+    Queen,
+    /// Shared boundary edge.
+    Rook,
+    /// The k nearest units.
+    Nearest(usize),
+    /// Every unit within a distance.
+    Band(f64),
+}
+
+impl WeightsRule {
+    /// Parses `queen`, `rook`, `knn:K` or `band:DISTANCE`.
+    ///
+    /// # Errors
+    /// [`Error::Usage`] for anything else.
+    pub fn parse(text: &str) -> Result<WeightsRule, Error> {
+        let bad = || {
+            Error::Usage(format!(
+                "weights {text:?}: use queen, rook, knn:K (K from 1 to 1000) or band:DISTANCE (CRS units)"
+            ))
+        };
+        match text.trim() {
+            "queen" => Ok(WeightsRule::Queen),
+            "rook" => Ok(WeightsRule::Rook),
+            other => match other.split_once(':') {
+                Some(("knn", k)) => match k.parse::<usize>() {
+                    Ok(k) if (1..=1000).contains(&k) => Ok(WeightsRule::Nearest(k)),
+                    _ => Err(bad()),
+                },
+                Some(("band", d)) => match d.parse::<f64>() {
+                    Ok(d) if d.is_finite() && d > 0.0 => Ok(WeightsRule::Band(d)),
+                    _ => Err(bad()),
+                },
+                _ => Err(bad()),
+            },
+        }
+    }
+
+    /// The name stored with the figures (`queen`, `knn:8`, `band:2500`).
+    pub fn name(&self) -> String {
+        match self {
+            WeightsRule::Queen => "queen".into(),
+            WeightsRule::Rook => "rook".into(),
+            WeightsRule::Nearest(k) => format!("knn:{k}"),
+            WeightsRule::Band(d) => format!("band:{d}"),
+        }
+    }
+}
+
+impl WeightsRule {
+    /// The rule as weights between points, for the held-out residuals of a
+    /// run (no polygons at hand there).
+    ///
+    /// # Errors
+    /// [`Error::Usage`] for queen and rook.
+    pub fn for_points(&self) -> Result<crate::core::diagnostics::held_out::PointRule, Error> {
+        use crate::core::diagnostics::held_out::PointRule;
+        match *self {
+            WeightsRule::Nearest(k) => Ok(PointRule::Nearest(k)),
+            WeightsRule::Band(d) => Ok(PointRule::Band(d)),
+            WeightsRule::Queen | WeightsRule::Rook => Err(Error::Usage(format!(
+                "--residual-weights {}: a run weighs its held-out residuals between unit locations; use knn:K or band:DISTANCE",
+                self.name()
+            ))),
+        }
+    }
+}
+
+/// The weights of a run's held-out residual Moran's I when the job names none.
+pub const DEFAULT_RESIDUAL_WEIGHTS: WeightsRule = WeightsRule::Nearest(8);
 
 /// Checks the target and feature names: none empty, no feature twice, the
 /// target not among the features.
@@ -316,6 +405,7 @@ mod tests {
             },
             job: None,
             limits: Limits::default(),
+            residual_weights: None,
         }
     }
 

@@ -208,6 +208,43 @@ fn columbus_in_a_geopackage_matches_esda_and_spreg() {
         )
         .unwrap();
     assert!(fits >= 2, "fits stored: {fits}");
+
+    // A later run of the same job with blocks far below the fitted range is
+    // warned about (the rule: below half the range; common practice, no
+    // source, after the advice's reasoning).
+    let range: f64 = conn
+        .query_row(
+            "SELECT fitted_range FROM inspections ORDER BY started_at DESC LIMIT 1",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    for (block, warned) in [(range / 4.0, true), (range * 1.5, false)] {
+        let mut command = work.geofold();
+        command
+            .args([
+                "run",
+                "--target",
+                "CRIME",
+                "--features",
+                "INC,HOVAL",
+                "--assume-metres",
+            ])
+            .arg("--gpkg")
+            .arg(&source)
+            .arg("--results-gpkg")
+            .arg(&results)
+            .args(["--block-size", &block.to_string(), "--folds", "2", "--json"]);
+        let output = run(command);
+        assert_eq!(code(&output), 0);
+        let summary = common::json(&output);
+        let warnings = summary["runs"][0]["warnings"].to_string();
+        assert_eq!(
+            warnings.contains("well below"),
+            warned,
+            "{block}: {warnings}"
+        );
+    }
 }
 
 #[test]
@@ -253,4 +290,115 @@ fn columbus_in_postgis_matches_esda_and_spreg() {
     psql_script(&format!(
         "DROP SCHEMA {schema} CASCADE; DROP SCHEMA {results} CASCADE;"
     ));
+}
+
+/// Every run stores Moran's I of its held-out residuals: on the Meuse samples
+/// (Pebesma & Bivand 2005, the copy in scikit-gstat; `tests/fixtures/meuse`)
+/// loaded with ogr2ogr, zinc ~ x + y under grid folds, the stored statistic
+/// equals esda's over libpysal's 8-nearest-neighbour weights of the same
+/// points and the stored held-out residuals (`tests/python/held_out_moran.py`).
+#[test]
+fn runs_store_the_moran_of_their_held_out_residuals_as_esda_computes_it() {
+    let work = Workdir::new();
+    let source = work.path("meuse.gpkg");
+    ogr2ogr(&[
+        "-f",
+        "GPKG",
+        source.to_str().unwrap(),
+        concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/tests/fixtures/meuse/meuse.tsv"
+        ),
+        "-oo",
+        "X_POSSIBLE_NAMES=x",
+        "-oo",
+        "Y_POSSIBLE_NAMES=y",
+        "-oo",
+        "KEEP_GEOM_COLUMNS=YES",
+        "-oo",
+        "AUTODETECT_TYPE=YES",
+        "-a_srs",
+        "EPSG:28992",
+        "-nln",
+        "meuse",
+    ]);
+    let mut command = work.geofold();
+    command.args([
+        "run",
+        "--gpkg",
+        source.to_str().unwrap(),
+        "--target",
+        "zinc",
+        "--features",
+        "x,y",
+        "--block-size",
+        "500",
+        "--json",
+    ]);
+    let output = run(command);
+    assert_eq!(code(&output), 0);
+    let summary = common::json(&output);
+    let run_id = summary["runs"][0]["run_id"].as_str().unwrap().to_string();
+    let reported = summary["runs"][0]["held_out_moran"]["moran"]["statistic"]
+        .as_f64()
+        .expect("held_out_moran in --json");
+
+    let conn = rusqlite::Connection::open(&source).unwrap();
+    let mut statement = conn
+        .prepare(
+            "SELECT m.x, m.y, h.observed - h.predicted FROM held_out h
+             JOIN meuse m ON CAST(m.fid AS TEXT) = h.unit_id
+             WHERE h.run_id = ?1 ORDER BY m.fid",
+        )
+        .unwrap();
+    let lines: Vec<String> = statement
+        .query_map([&run_id], |row| {
+            Ok(format!(
+                "{}\t{}\t{:?}",
+                row.get::<_, f64>(0)?,
+                row.get::<_, f64>(1)?,
+                row.get::<_, f64>(2)?
+            ))
+        })
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert_eq!(lines.len(), 155);
+    let reference: serde_json::Value = serde_json::from_str(&common::python_script(
+        "python/held_out_moran.py",
+        &["8"],
+        &(lines.join("\n") + "\n"),
+    ))
+    .unwrap();
+    let stored: (String, i64, f64, f64, f64, f64) = conn
+        .query_row(
+            "SELECT weights, n, value, expected_random, z_normal, z_random FROM diagnostics
+             WHERE analysis_id = ?1 AND subject = 'held_out_residuals'",
+            [&run_id],
+            |r| {
+                Ok((
+                    r.get(0)?,
+                    r.get(1)?,
+                    r.get(2)?,
+                    r.get(3)?,
+                    r.get(4)?,
+                    r.get(5)?,
+                ))
+            },
+        )
+        .unwrap();
+    assert_eq!((stored.0.as_str(), stored.1), ("knn:8", 155));
+    for (got, key) in [
+        (stored.2, "I"),
+        (stored.3, "EI"),
+        (stored.4, "z_norm"),
+        (stored.5, "z_rand"),
+    ] {
+        let want = reference[key].as_f64().unwrap();
+        assert!(
+            (got - want).abs() <= 1e-9 * want.abs().max(1.0),
+            "{key}: stored {got}, esda {want}"
+        );
+    }
+    assert_eq!(reported, stored.2);
 }

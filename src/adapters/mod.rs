@@ -275,6 +275,23 @@ pub trait ResultStore {
     /// # Errors
     /// An unknown or unsuccessful run.
     fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error>;
+    /// The job's latest inspection that found a residual autocorrelation
+    /// range (call after [`ResultStore::prepare`]).
+    ///
+    /// # Errors
+    /// Database or file errors.
+    fn last_inspection(&mut self, job: &str) -> Result<Option<StoredInspection>, Error>;
+}
+
+/// The figures of a stored inspection that later runs are checked against.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct StoredInspection {
+    /// Its id.
+    pub inspection_id: Uuid,
+    /// When it ran (ISO 8601, UTC).
+    pub started_at: String,
+    /// The effective range of the chosen semivariogram model (CRS units).
+    pub fitted_range: f64,
 }
 
 impl dyn ResultStore + '_ {

@@ -117,6 +117,7 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
         results,
         job: Some(DEMO_JOB.into()),
         limits: Limits::default(),
+        residual_weights: None,
     };
     let summary = crate::pipeline::run(&spec)?;
     Ok((summary, hint))

@@ -100,6 +100,10 @@ pub struct ValidationArgs {
     /// Model family (ols: ordinary least squares with intercept).
     #[arg(long, default_value = "ols", value_name = "MODEL")]
     pub model: String,
+    /// Weights of the Moran's I stored for each run's held-out residuals: knn:K (the K
+    /// nearest units) or band:DISTANCE (units within DISTANCE, CRS units); row-standardised.
+    #[arg(long, value_name = "RULE", default_value = "knn:8")]
+    pub residual_weights: String,
 }
 
 /// Where the results go.
@@ -251,6 +255,7 @@ impl RunArgs {
                 statement_timeout_s: self.limits.statement_timeout,
                 wait_s: self.limits.wait,
             },
+            residual_weights: Some(v.residual_weights.clone()),
         })
     }
 }

@@ -18,6 +18,7 @@
 
 use serde::Serialize;
 
+use crate::core::diagnostics::held_out::HeldOutMoran;
 use crate::core::folds::{exclude_within, FoldRng, FoldScheme, FoldSet, SchemeInput};
 use crate::core::metrics::{spreads, Family, Scores, Spread};
 use crate::core::models::{FitError, Fitted, Model, TrainingSet};
@@ -85,6 +86,25 @@ pub struct RunOutcome {
     pub repeat_spread: Option<Vec<(&'static str, Spread)>>,
     /// Pooled scores of the training-mean baseline on the same folds.
     pub baseline: Scores,
+    /// Moran's I of the held-out residuals (set by the pipeline; None when
+    /// it could not be computed, with a warning).
+    pub held_out_moran: Option<HeldOutMoran>,
+}
+
+impl RunOutcome {
+    /// Each unit's held-out residual, observed minus its held-out prediction
+    /// averaged over repetitions, in dataset order (NaN where a prediction is
+    /// missing).
+    pub fn held_out_residuals(&self, observed: &[f64]) -> Vec<f64> {
+        let repetitions = self.repetitions.len().max(1) as f64;
+        (0..observed.len())
+            .map(|i| {
+                let mean =
+                    self.repetitions.iter().map(|r| r.predicted[i]).sum::<f64>() / repetitions;
+                observed[i] - mean
+            })
+            .collect()
+    }
 }
 
 /// Checks a number of repetitions.
@@ -205,6 +225,7 @@ pub fn fit_and_score(
         fold_spread,
         repeat_spread,
         baseline: family.score(&baseline_pairs),
+        held_out_moran: None,
     })
 }
 

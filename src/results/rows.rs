@@ -7,9 +7,10 @@ use serde::Serialize;
 use uuid::Uuid;
 
 use super::{
-    TableDef, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES, HELD_OUT, RUN_SCORE_VALUES,
-    UNIT_SUMMARIES,
+    TableDef, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES, HELD_OUT,
+    RUN_SCORE_VALUES, UNIT_SUMMARIES,
 };
+use crate::core::diagnostics::moran::{Inference, Moran};
 use crate::core::units::{Dataset, UnitId};
 use crate::core::validate::{unit_summary, RunOutcome};
 
@@ -252,7 +253,76 @@ pub fn run_rows<'a>(
             starts: exclusions,
             total: offset,
         }),
+        diagnostics_rows(
+            run_id,
+            outcome
+                .held_out_moran
+                .iter()
+                .map(|h| MoranRow {
+                    subject: "held_out_residuals",
+                    weights: &h.weights,
+                    sampled_from: h.sampled_from,
+                    moran: &h.moran,
+                    regression: None,
+                    permutation: None,
+                })
+                .collect(),
+        ),
     ]
+}
+
+/// One Moran's I of `diagnostics`.
+pub struct MoranRow<'a> {
+    /// `target`, `residuals` or `held_out_residuals`.
+    pub subject: &'static str,
+    /// The weights rule (`queen`, `knn:8`, …).
+    pub weights: &'a str,
+    /// Units a sample was drawn from, when one was.
+    pub sampled_from: Option<usize>,
+    /// I with the moments under normality and randomisation.
+    pub moran: &'a Moran,
+    /// The regression-residual moments, for full-data least-squares residuals.
+    pub regression: Option<Inference>,
+    /// The permutation test: permutations and p.
+    pub permutation: Option<(usize, f64)>,
+}
+
+/// `diagnostics` rows of a run or an inspection (`analysis_id`).
+pub fn diagnostics_rows<'a>(
+    analysis_id: Uuid,
+    rows: Vec<MoranRow<'a>>,
+) -> Box<dyn RowSource<'a> + 'a> {
+    listed(
+        &DIAGNOSTICS,
+        rows,
+        move |r: &MoranRow<'a>, out: &mut Vec<Value<'a>>| {
+            let m = r.moran;
+            out.extend([
+                Value::Uuid(analysis_id),
+                Value::Str(r.subject),
+                Value::Str("morans_i"),
+                Value::Str(r.weights),
+                Value::Int(m.n as i64),
+                r.sampled_from.map_or(Value::Null, |n| Value::Int(n as i64)),
+                Value::Int(m.islands as i64),
+                Value::Float(m.statistic),
+                Value::Float(m.normality.expected),
+                Value::Float(m.normality.variance),
+                Value::Float(m.normality.z),
+                Value::Float(m.normality.p_two_sided),
+                Value::Float(m.randomisation.expected),
+                Value::Float(m.randomisation.variance),
+                Value::Float(m.randomisation.z),
+                Value::Float(m.randomisation.p_two_sided),
+                Value::float(r.regression.map(|g| g.expected)),
+                Value::float(r.regression.map(|g| g.variance)),
+                Value::float(r.regression.map(|g| g.z)),
+                Value::float(r.regression.map(|g| g.p_two_sided)),
+                Value::Int(r.permutation.map_or(0, |p| p.0 as i64)),
+                Value::float(r.permutation.map(|p| p.1)),
+            ]);
+        },
+    )
 }
 
 /// Rows of `table` given by a list of items and a function filling a row from one.

@@ -25,7 +25,9 @@ use super::read::srs_row;
 use super::rows::{insert_rows, job_descriptions, rewrite_job_layers, UnitRows};
 use super::schema::{self, Srs, TriggerSet};
 use super::{check_geopackage, file_error, open_file, sqlite_error, tables};
-use crate::adapters::{add_count, ResultStore, SourceInfo, StoreReport, StoredRun};
+use crate::adapters::{
+    add_count, ResultStore, SourceInfo, StoreReport, StoredInspection, StoredRun,
+};
 use crate::core::units::Dataset;
 use crate::error::{Error, FileProblem};
 use crate::results::rows::{run_rows, FinishedRun, RowSource, RunRecord};
@@ -539,6 +541,26 @@ impl ResultStore for GpkgStore {
                 .map_err(error)?;
         }
         Ok(found)
+    }
+
+    fn last_inspection(&mut self, job: &str) -> Result<Option<StoredInspection>, Error> {
+        let path = self.path.clone();
+        let conn = self.conn()?;
+        conn.query_row(
+            "SELECT inspection_id, started_at, fitted_range FROM inspections
+             WHERE job = ?1 AND fitted_range IS NOT NULL ORDER BY started_at DESC LIMIT 1",
+            params![job],
+            |row| {
+                let id: String = row.get(0)?;
+                Ok(StoredInspection {
+                    inspection_id: Uuid::parse_str(&id).unwrap_or_default(),
+                    started_at: row.get(1)?,
+                    fitted_range: row.get(2)?,
+                })
+            },
+        )
+        .optional()
+        .map_err(|e| sqlite_error(&path, "reading the job's last inspection", &e))
     }
 
     fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error> {

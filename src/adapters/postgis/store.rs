@@ -22,7 +22,9 @@ use super::copy::CopyEncoder;
 use super::layers::job_views;
 use super::migrate::{lock_key, prepare_schema};
 use super::{database_error, quote_ident, Session};
-use crate::adapters::{add_count, Layer, ResultStore, SourceInfo, StoreReport, StoredRun};
+use crate::adapters::{
+    add_count, Layer, ResultStore, SourceInfo, StoreReport, StoredInspection, StoredRun,
+};
 use crate::core::units::{Dataset, IdKind};
 use crate::error::Error;
 use crate::results::rows::{run_rows, FinishedRun, RowSource, RunRecord, Value};
@@ -435,6 +437,37 @@ impl ResultStore for PostgisStore {
                 }
             }
             Ok(found)
+        })
+    }
+
+    fn last_inspection(&mut self, job: &str) -> Result<Option<StoredInspection>, Error> {
+        let inspections = self.qualified("inspections");
+        let session = &self.session;
+        let action = "reading the job's last inspection";
+        session.runtime.block_on(async {
+            let row = session
+                .client
+                .query_opt(
+                    &format!(
+                        "SELECT inspection_id,
+                            to_char(started_at AT TIME ZONE 'UTC', 'YYYY-MM-DD\"T\"HH24:MI:SS.MS\"Z\"'),
+                            fitted_range
+                         FROM {inspections} WHERE job = $1 AND fitted_range IS NOT NULL
+                         ORDER BY started_at DESC LIMIT 1"
+                    ),
+                    &[&job],
+                )
+                .await
+                .map_err(|e| database_error(action, &e))?;
+            row.map(|row| {
+                Ok(StoredInspection {
+                    inspection_id: row.try_get(0)?,
+                    started_at: row.try_get(1)?,
+                    fitted_range: row.try_get(2)?,
+                })
+            })
+            .transpose()
+            .map_err(|e: tokio_postgres::Error| database_error(action, &e))
         })
     }
 

@@ -21,12 +21,15 @@
 //! - [`correlogram`]: Moran's I by distance class.
 //! - [`advice`]: block size and exclusion radius from the fitted range, with
 //!   the figures and caveats they rest on.
+//! - [`held_out`]: Moran's I of a run's held-out residuals, stored with
+//!   every run.
 //! - [`draws`]: the seeded index draws behind permutations and pair samples.
 
 pub mod advice;
 pub mod contiguity;
 pub mod correlogram;
 pub mod draws;
+pub mod held_out;
 pub mod moran;
 pub mod pairs;
 pub mod permutation;
