@@ -6,6 +6,8 @@
 //! - [`results`]: one definition of every results table.
 //! - [`adapters`]: PostGIS and GeoPackage readers and result stores.
 //! - [`report`]: the summary, as text and JSON; [`render`]: maps and the HTML report.
+//! - [`jobs`]: job files (TOML of named jobs); [`gates`]: drift gates and baselines.
+//! - [`progress`]: the pipeline's progress hook and its terminal bars.
 //! - [`cli`]: one module per subcommand.
 //! - [`demo`]: the invented demo scenario and its writers.
 
@@ -14,7 +16,10 @@ pub mod cli;
 pub mod core;
 pub mod demo;
 pub mod error;
+pub mod gates;
+pub mod jobs;
 pub mod pipeline;
+pub mod progress;
 pub mod render;
 pub mod report;
 pub mod results;

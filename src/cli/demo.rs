@@ -117,6 +117,9 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
         results,
         job: Some(DEMO_JOB.into()),
         limits: Limits::default(),
+        gates: Vec::new(),
+        baseline_runs: crate::gates::DEFAULT_BASELINE_RUNS,
+        skip_unchanged: false,
     };
     let summary = crate::pipeline::run(&spec)?;
     Ok((summary, hint))
