@@ -407,11 +407,15 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
 /// The unchanged outcome, when the job's last successful run read the same
 /// input with the same settings.
 fn unchanged(
-    store: &mut dyn ResultStore,
+    store: &mut dyn Store,
     job: &str,
     data: &Dataset,
     settings_hash: &str,
 ) -> Result<Option<Unchanged>, Error> {
+    if !store.initialised()? {
+        return Ok(None);
+    }
+    let store: &mut dyn ResultStore = store;
     let Some(last) = store.last_successful(job)? else {
         return Ok(None);
     };

@@ -3,6 +3,8 @@
 //! and reading the results tables back with psql.
 #![allow(dead_code)]
 
+pub mod proxy;
+
 use std::path::PathBuf;
 use std::process::{Command, Output};
 
@@ -57,7 +59,7 @@ impl Case {
     pub fn job(&self, name: &str, db: &str, extra: &str) -> String {
         format!(
             "[job.{name}]\ndb = \"{db}\"\ntable = \"{}\"\ntarget = \"yield\"\nfeatures = [\"wetness\", \"slope\"]\n\
-             results-schema = \"{}\"\nblock-size = 4000\n{extra}\n",
+             results-schema = \"{}\"\n{extra}\n",
             self.table(),
             self.results
         )
@@ -179,6 +181,39 @@ pub fn fnv1a64(text: &str) -> u64 {
         hash = hash.wrapping_mul(0x0000_0100_0000_01b3);
     }
     hash
+}
+
+/// The job report of `name` in a `run --config --json` document.
+pub fn job_report<'a>(document: &'a serde_json::Value, name: &str) -> &'a serde_json::Value {
+    document["jobs"]
+        .as_array()
+        .and_then(|jobs| jobs.iter().find(|j| j["job"] == name))
+        .unwrap_or_else(|| panic!("no job {name} in {document}"))
+}
+
+/// `geofold run --json` of the lattice as job `plots`, straight to the test
+/// server, with extra options.
+pub fn run_plots(case: &Case, extra: &[&str]) -> Output {
+    let db = db_uri();
+    let table = case.table();
+    let mut args = vec![
+        "run",
+        "--db",
+        &db,
+        "--table",
+        &table,
+        "--target",
+        "yield",
+        "--features",
+        "wetness,slope",
+        "--results-schema",
+        &case.results,
+        "--job",
+        "plots",
+        "--json",
+    ];
+    args.extend_from_slice(extra);
+    case.run(&args)
 }
 
 /// stdout as text.
