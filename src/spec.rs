@@ -254,16 +254,19 @@ impl RunSpec {
         Ok(Checked { scheme, model })
     }
 
-    /// A SHA-256 of every setting that shapes the results (source, columns,
-    /// scheme, model and their options, repetitions, seed), but not where
-    /// the results go, the connection, the job label, waits or gates: two
-    /// runs with the same hash and the same input fingerprint give the same
-    /// results.
+    /// A SHA-256 of every setting that shapes the results from the rows read
+    /// (columns, scheme, model and their options, exclusion radius,
+    /// repetitions, seed, distance SRID, row rules), but not where the rows
+    /// come from or the results go, the connection, the job label, waits or
+    /// gates: two runs with the same hash and the same input fingerprint
+    /// give the same results, and the same settings on PostGIS and on a
+    /// GeoPackage copy hash alike.
     pub fn settings_hash(&self) -> String {
         use sha2::{Digest, Sha256};
         let mut value = serde_json::to_value(self).unwrap_or_default();
         if let Some(map) = value.as_object_mut() {
             for key in [
+                "source",
                 "results",
                 "job",
                 "limits",
@@ -272,9 +275,6 @@ impl RunSpec {
                 "skip_unchanged",
             ] {
                 map.remove(key);
-            }
-            if let Some(source) = map.get_mut("source").and_then(|s| s.as_object_mut()) {
-                source.remove("db");
             }
         }
         let digest = Sha256::digest(value.to_string().as_bytes());
@@ -394,7 +394,8 @@ mod tests {
     }
 
     #[test]
-    fn the_settings_hash_ignores_where_results_go_and_follows_what_shapes_them() {
+    fn the_settings_hash_ignores_where_rows_come_from_and_results_go_and_follows_what_shapes_them()
+    {
         let base = spec();
         let mut moved = spec();
         moved.results = ResultsRef::Postgis {
@@ -405,9 +406,9 @@ mod tests {
         moved.limits.wait_s = 60.0;
         moved.gates = crate::gates::parse_all(&["rmse<=1".into()]).unwrap();
         moved.skip_unchanged = true;
-        moved.source = SourceRef::Postgis {
-            db: Some("service=other".into()),
-            table: "hydro.units".into(),
+        moved.source = SourceRef::Gpkg {
+            file: "copy.gpkg".into(),
+            layer: Some("units".into()),
         };
         assert_eq!(base.settings_hash(), moved.settings_hash());
         let mut reseeded = spec();
