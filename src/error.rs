@@ -11,6 +11,9 @@ use std::fmt;
 pub mod exit {
     /// Everything worked.
     pub const OK: i32 = 0;
+    /// Results written, and a drift gate was breached: a result, not an error
+    /// (as grep's 1 for "no match").
+    pub const GATE_BREACHED: i32 = 1;
     /// Busy: another run of the same job holds its lock; nothing was done.
     pub const BUSY: i32 = 2;
     /// Usage error: bad flags or arguments (EX_USAGE).
@@ -33,6 +36,38 @@ pub mod exit {
     pub const NO_PERMISSION: i32 = 77;
     /// A bad connection string or configuration (EX_CONFIG).
     pub const CONFIG: i32 = 78;
+
+    /// Exit codes from the most to the least severe: what `run --config`
+    /// returns when its jobs end differently. Problems a person must fix
+    /// (a bug, the configuration, the input, permissions) come before those a
+    /// later try may cure (an unreachable server, a temporary failure), then
+    /// busy, then a breached gate, then success.
+    pub const SEVERITY: [i32; 13] = [
+        SOFTWARE,
+        CONFIG,
+        USAGE,
+        NO_PERMISSION,
+        NO_INPUT,
+        DATA,
+        CANT_CREATE,
+        IO,
+        UNAVAILABLE,
+        TEMPFAIL,
+        BUSY,
+        GATE_BREACHED,
+        OK,
+    ];
+
+    /// The most severe of several exit codes ([`SEVERITY`]; a code not in it
+    /// counts as [`SOFTWARE`]). OK for none.
+    pub fn worst(codes: impl IntoIterator<Item = i32>) -> i32 {
+        let rank = |code: i32| SEVERITY.iter().position(|&c| c == code).unwrap_or(0);
+        codes
+            .into_iter()
+            .map(|code| if rank(code) == 0 { SOFTWARE } else { code })
+            .min_by_key(|&code| rank(code))
+            .unwrap_or(OK)
+    }
 }
 
 /// Where in the input a problem sits: `table.column` and, when known, the row id.
@@ -161,9 +196,41 @@ pub enum Error {
         /// What conflicts.
         problem: String,
     },
+    /// A job file is wrong at a line.
+    #[error("{}", job_file_message(file, *line, job.as_deref(), key.as_deref(), problem))]
+    JobFile {
+        /// The file as given.
+        file: String,
+        /// The line at fault, from 1.
+        line: usize,
+        /// The job (`[job.NAME]`), when the problem is inside one.
+        job: Option<String>,
+        /// The key at fault, when one is.
+        key: Option<String>,
+        /// What is wrong.
+        problem: String,
+    },
     /// A bug in geofold.
     #[error("internal error: {0}")]
     Internal(String),
+}
+
+fn job_file_message(
+    file: &str,
+    line: usize,
+    job: Option<&str>,
+    key: Option<&str>,
+    problem: &str,
+) -> String {
+    let mut text = format!("{file}:{line}: ");
+    match (job, key) {
+        (Some(job), Some(key)) => text.push_str(&format!("job {job}, key {key}: ")),
+        (Some(job), None) => text.push_str(&format!("job {job}: ")),
+        (None, Some(key)) => text.push_str(&format!("key {key}: ")),
+        (None, None) => {}
+    }
+    text.push_str(problem);
+    text
 }
 
 /// An error and its causes, joined by ": " (each cause once: a cause whose
@@ -258,6 +325,7 @@ impl Error {
                 FileProblem::Permission => exit::NO_PERMISSION,
                 FileProblem::Unexpected => exit::SOFTWARE,
             },
+            Error::JobFile { .. } => exit::CONFIG,
             Error::Internal(_) => exit::SOFTWARE,
         }
     }
@@ -279,6 +347,7 @@ impl Error {
             Error::Database { .. } => "database",
             Error::File { .. } => "file",
             Error::Store { .. } => "store",
+            Error::JobFile { .. } => "job_file",
             Error::Internal(_) => "internal",
         }
     }
@@ -337,6 +406,37 @@ mod tests {
             .collect();
         let text = Error::Input { problems }.to_string();
         assert!(text.ends_with("; and 5 more"), "{text}");
+    }
+
+    #[test]
+    fn the_worst_exit_code_puts_fixes_before_retries_before_busy_before_gates() {
+        assert_eq!(exit::worst([]), exit::OK);
+        assert_eq!(exit::worst([0, 1, 0]), exit::GATE_BREACHED);
+        assert_eq!(exit::worst([1, 2]), exit::BUSY);
+        assert_eq!(exit::worst([2, 75, 1]), exit::TEMPFAIL);
+        assert_eq!(exit::worst([75, 65, 69]), exit::DATA);
+        assert_eq!(exit::worst([65, 78]), exit::CONFIG);
+        assert_eq!(exit::worst([0, 3]), exit::SOFTWARE);
+        let mut sorted = exit::SEVERITY.to_vec();
+        sorted.sort_unstable();
+        sorted.dedup();
+        assert_eq!(sorted.len(), exit::SEVERITY.len(), "every code once");
+    }
+
+    #[test]
+    fn job_file_errors_name_file_line_job_and_key() {
+        let error = Error::JobFile {
+            file: "nightly.toml".into(),
+            line: 7,
+            job: Some("nitrate".into()),
+            key: Some("block-size".into()),
+            problem: "must be positive".into(),
+        };
+        assert_eq!(
+            error.to_string(),
+            "nightly.toml:7: job nitrate, key block-size: must be positive"
+        );
+        assert_eq!(error.exit_code(), exit::CONFIG);
     }
 
     #[test]

@@ -200,7 +200,13 @@ pub fn inspect(spec: &InspectSpec) -> Result<Inspection, Error> {
     )?;
     let job = job_of(spec.job.as_deref(), &spec.source, &spec.results, &info);
     crate::adapters::check_job(&job)?;
-    let data = read_units(source.as_mut(), &info, spec.strict)?;
+    let data = read_units(
+        source.as_mut(),
+        &info,
+        &job,
+        spec.strict,
+        &crate::progress::Silent,
+    )?;
     let rule = match &spec.weights {
         Some(text) => WeightsRule::parse(text)?,
         None if data.geometry_kinds.polygons && !data.geometry_kinds.points => WeightsRule::Queen,

@@ -7,6 +7,8 @@
 //! - [`inspect`]: spatial diagnostics of a layer, stored beside the runs.
 //! - [`adapters`]: PostGIS and GeoPackage readers and result stores.
 //! - [`report`]: the summary, as text and JSON; [`render`]: maps and the HTML report.
+//! - [`jobs`]: job files (TOML of named jobs); [`gates`]: drift gates and baselines.
+//! - [`progress`]: the pipeline's progress hook and its terminal bars.
 //! - [`cli`]: one module per subcommand.
 //! - [`demo`]: the invented demo scenario and its writers.
 
@@ -15,8 +17,11 @@ pub mod cli;
 pub mod core;
 pub mod demo;
 pub mod error;
+pub mod gates;
 pub mod inspect;
+pub mod jobs;
 pub mod pipeline;
+pub mod progress;
 pub mod render;
 pub mod report;
 pub mod results;

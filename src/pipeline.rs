@@ -1,4 +1,4 @@
-//! The one pipeline: a [`RunSpec`] in, a [`Summary`] (or an error with its
+//! The one pipeline: a [`RunSpec`] in, an [`Outcome`] (or an error with its
 //! exit code) out. `run`, `demo` and job files all come through here; the
 //! command line only parses.
 //!
@@ -7,18 +7,29 @@
 //! 2. Open the source and check its CRS against what the scheme needs.
 //! 3. Open the results store and enter the job's exclusive section (a second
 //!    run of the job exits busy, or waits `--wait`).
-//! 4. Read and check every row; assign every repetition's folds.
+//! 4. Read and check every row. With `--skip-unchanged`, stop here with
+//!    [`Outcome::Unchanged`] when the input fingerprint and the settings hash
+//!    match the job's last successful run. Assign every repetition's folds.
 //!    Bad input stops here: nothing is written, no run is recorded.
 //! 5. Create or upgrade the results tables, mark failed the runs of
 //!    processes that are gone, and record the runs as `running`.
 //! 6. Fit and score; write every result row in one transaction.
 //!    A failure here marks the runs failed and leaves no result rows.
+//! 7. With gates, read the run's stored scores and the job's baseline back
+//!    and judge them ([`crate::gates`]); a breach leaves the results written
+//!    and sets the summary's exit code to 1.
+//!
+//! Progress of steps 4 and 6 goes to a [`Progress`] hook.
 
-use std::time::{SystemTime, UNIX_EPOCH};
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::Arc;
+use std::time::{Duration, SystemTime, UNIX_EPOCH};
 
+use serde::Serialize;
 use uuid::Uuid;
 
 use crate::adapters::gpkg::{GpkgSource, GpkgStore};
+use crate::adapters::history::Store;
 use crate::adapters::postgis::read::PostgisSource;
 use crate::adapters::postgis::store::PostgisStore;
 use crate::adapters::postgis::Session;
@@ -30,9 +41,10 @@ use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
 use crate::core::neighbours::NeighbourIndex;
 use crate::core::units::{Dataset, UnitCollector};
 use crate::core::validate::{assign_folds, fit_and_score, Plan, RunOutcome};
-use crate::error::Error;
+use crate::error::{exit, Error};
+use crate::progress::{Phase, Progress, Silent};
 use crate::report::Summary;
-use crate::results::rows::{FinishedRun, RunRecord};
+use crate::results::rows::{run_rows, FinishedRun, RunRecord};
 use crate::spec::{Limits, ResultsRef, RunSpec, SourceRef};
 
 /// Opens a source.
@@ -61,7 +73,7 @@ pub fn open_source(
 ///
 /// # Errors
 /// Connection errors; a results file that cannot be written.
-pub fn open_store(results: &ResultsRef, limits: &Limits) -> Result<Box<dyn ResultStore>, Error> {
+pub fn open_store(results: &ResultsRef, limits: &Limits) -> Result<Box<dyn Store>, Error> {
     Ok(match results {
         ResultsRef::Postgis { db, schema } => {
             let session = Session::connect(db.as_deref())?;
@@ -159,16 +171,20 @@ pub fn check_crs(needed: bool, assume_metres: bool, info: &mut SourceInfo) -> Re
     }
 }
 
-/// Reads and checks every row of the source.
+/// Reads and checks every row of the source, showing the count as it grows
+/// when the progress display is live.
 ///
 /// # Errors
 /// Bad rows (every one listed), duplicate ids, no usable row.
 pub fn read_units(
     source: &mut dyn Source,
     info: &SourceInfo,
+    job: &str,
     strict: bool,
+    progress: &dyn Progress,
 ) -> Result<Dataset, Error> {
     let clock = std::time::Instant::now();
+    let counter = Arc::new(AtomicU64::new(0));
     let mut collector = UnitCollector::new(
         &info.table,
         &info.target_column,
@@ -176,8 +192,12 @@ pub fn read_units(
         strict,
     )
     .with_group(info.group_column.as_deref())
-    .with_exposure(info.exposure_column.as_deref());
-    source.read(&mut collector)?;
+    .with_exposure(info.exposure_column.as_deref())
+    .with_row_counter(Arc::clone(&counter));
+    progress.start(Phase::Read, None);
+    let read = read_rows(source, &mut collector, &counter, progress);
+    progress.finish(counter.load(Ordering::Relaxed));
+    read?;
     let data = collector.finish(&info.id_column)?;
     if data.is_empty() {
         let reasons = data.skipped.describe();
@@ -197,12 +217,40 @@ pub fn read_units(
         ));
     }
     tracing::info!(
+        job,
+        phase = "read",
         units = data.len(),
         skipped = data.skipped.total(),
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "read units"
     );
     Ok(data)
+}
+
+/// Reads every row into the collector, updating the display from a second
+/// thread while the display is live.
+fn read_rows(
+    source: &mut dyn Source,
+    collector: &mut UnitCollector,
+    counter: &AtomicU64,
+    progress: &dyn Progress,
+) -> Result<(), Error> {
+    if !progress.live() {
+        return source.read(collector);
+    }
+    let (stop, stopped) = std::sync::mpsc::channel::<()>();
+    std::thread::scope(|scope| {
+        scope.spawn(move || {
+            while let Err(std::sync::mpsc::RecvTimeoutError::Timeout) =
+                stopped.recv_timeout(Duration::from_millis(100))
+            {
+                progress.update(counter.load(Ordering::Relaxed));
+            }
+        });
+        let result = source.read(collector);
+        let _ = stop.send(());
+        result
+    })
 }
 
 /// `host:pid` of this process, recorded with its runs.
@@ -220,11 +268,68 @@ struct Planned<'a> {
     folds: Vec<FoldSet>,
 }
 
-/// Runs a specification.
+/// What a run came to.
+#[derive(Debug)]
+pub enum Outcome {
+    /// Results written (gates, if any, judged in the summary).
+    Finished(Box<Summary>),
+    /// `--skip-unchanged` found nothing new: nothing written.
+    Unchanged(Unchanged),
+}
+
+/// A run skipped because its input and settings match the job's last successful run.
+#[derive(Debug, Clone, Serialize)]
+pub struct Unchanged {
+    /// The job.
+    pub job: String,
+    /// Rows read.
+    pub units_read: u64,
+    /// The input fingerprint both runs share.
+    pub input_fingerprint: String,
+    /// The settings hash both runs share.
+    pub settings_hash: String,
+    /// The job's last successful run.
+    pub last_run_id: Uuid,
+    /// When it finished.
+    pub last_finished_at: Option<String>,
+}
+
+impl Unchanged {
+    /// The human summary.
+    pub fn to_text(&self) -> String {
+        format!(
+            "job {}: unchanged: the {} rows read and the settings match run {} (finished {}); \
+             nothing was run or written (--skip-unchanged)",
+            self.job,
+            self.units_read,
+            self.last_run_id,
+            self.last_finished_at.as_deref().unwrap_or("-")
+        )
+    }
+}
+
+/// The key of `runs.parameters` that holds [`RunSpec::settings_hash`].
+pub const SETTINGS_HASH_KEY: &str = "settings-hash";
+
+/// Runs a specification with no progress display; an unchanged input (only
+/// possible with `skip_unchanged`) is an internal error here.
 ///
 /// # Errors
 /// Any [`Error`]; see the module doc for what each leaves behind.
 pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
+    match run_with(spec, &Silent)? {
+        Outcome::Finished(summary) => Ok(*summary),
+        Outcome::Unchanged(_) => Err(Error::Internal(
+            "pipeline::run was given skip_unchanged; use run_with".into(),
+        )),
+    }
+}
+
+/// Runs a specification, reporting progress.
+///
+/// # Errors
+/// Any [`Error`]; see the module doc for what each leaves behind.
+pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Error> {
     let checked = spec.check()?;
     let (mut source, info) = open_checked(
         &spec.source,
@@ -238,8 +343,16 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
     crate::adapters::check_job(&job)?;
     let mut store = open_store(&spec.results, &spec.limits)?;
     store.lock_job(&job, spec.limits.wait())?;
-    let data = read_units(source.as_mut(), &info, spec.strict)?;
+    let data = read_units(source.as_mut(), &info, &job, spec.strict, progress)?;
     drop(source);
+
+    let settings_hash = spec.settings_hash();
+    if spec.skip_unchanged {
+        if let Some(unchanged) = unchanged(store.as_mut(), &job, &data, &settings_hash)? {
+            tracing::info!(job, phase = "read", last_run_id = %unchanged.last_run_id, "input and settings unchanged");
+            return Ok(Outcome::Unchanged(unchanged));
+        }
+    }
 
     let index = NeighbourIndex::new(&data.points);
     let input = SchemeInput {
@@ -289,6 +402,7 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
                 "scheme": scheme.parameters(),
                 "model": checked.model.parameters(),
                 "exclusion-radius": spec.exclusion_radius,
+                SETTINGS_HASH_KEY: settings_hash,
             }),
             seed: spec.seed,
             repeats: spec.repeats,
@@ -313,11 +427,89 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
     }
     let records: Vec<RunRecord> = planned.iter().map(|p| p.record.clone()).collect();
     store.begin(&info, &records)?;
-    let result = fit_and_write(spec, &checked, &info, &data, planned, store.as_mut());
-    if let Err(error) = &result {
-        store.fail(&records, &error.to_string());
+    let result = fit_and_write(
+        spec,
+        &checked,
+        &info,
+        &data,
+        planned,
+        store.as_mut(),
+        progress,
+    );
+    let mut summary = match result {
+        Ok(summary) => summary,
+        Err(error) => {
+            store.fail(&records, &error.to_string());
+            return Err(error);
+        }
+    };
+    if !spec.gates.is_empty() {
+        judge_gates(spec, store.as_mut(), &job, &records, &mut summary)?;
     }
-    result
+    Ok(Outcome::Finished(Box::new(summary)))
+}
+
+/// The unchanged outcome, when the job's last successful run read the same
+/// input with the same settings.
+fn unchanged(
+    store: &mut dyn Store,
+    job: &str,
+    data: &Dataset,
+    settings_hash: &str,
+) -> Result<Option<Unchanged>, Error> {
+    if !store.initialised()? {
+        return Ok(None);
+    }
+    let store: &mut dyn ResultStore = store;
+    let Some(last) = store.last_successful(job)? else {
+        return Ok(None);
+    };
+    let fingerprint = data.fingerprint();
+    let same_input = last.input_fingerprint.as_deref() == Some(fingerprint.as_str());
+    let same_settings = last
+        .parameters
+        .get(SETTINGS_HASH_KEY)
+        .and_then(serde_json::Value::as_str)
+        == Some(settings_hash);
+    Ok((same_input && same_settings).then(|| Unchanged {
+        job: job.to_string(),
+        units_read: data.rows_read,
+        input_fingerprint: fingerprint,
+        settings_hash: settings_hash.to_string(),
+        last_run_id: last.run_id,
+        last_finished_at: last.finished_at.clone(),
+    }))
+}
+
+/// Step 7: judges the gates on the stored scores of the primary run.
+fn judge_gates(
+    spec: &RunSpec,
+    store: &mut dyn ResultStore,
+    job: &str,
+    records: &[RunRecord],
+    summary: &mut Summary,
+) -> Result<(), Error> {
+    let Some(primary) = records.first().map(|r| r.run_id) else {
+        return Ok(());
+    };
+    let history = store.runs(Some(job), usize::MAX)?;
+    let current = history
+        .iter()
+        .find(|run| run.run_id == primary)
+        .ok_or_else(|| {
+            Error::Internal(format!(
+                "run {primary} is not in the history after it was written"
+            ))
+        })?;
+    let baseline = crate::gates::choose_baseline(&history, primary, spec.baseline_runs);
+    summary.gates = crate::gates::evaluate(&spec.gates, &current.scores, baseline.as_ref());
+    for result in &summary.gates {
+        tracing::info!(job, phase = "gates", gate = %result.gate, verdict = ?result.verdict, value = ?result.value, limit = ?result.limit, "gate judged");
+    }
+    if crate::gates::any_breached(&summary.gates) {
+        summary.exit_code = exit::GATE_BREACHED;
+    }
+    Ok(())
 }
 
 /// Step 6 of the module doc.
@@ -328,11 +520,18 @@ fn fit_and_write(
     data: &Dataset,
     planned: Vec<Planned<'_>>,
     store: &mut dyn ResultStore,
+    progress: &dyn Progress,
 ) -> Result<Summary, Error> {
     let clock = std::time::Instant::now();
     let mut records = Vec::new();
     let mut outcomes: Vec<RunOutcome> = Vec::new();
     let mut descriptions = Vec::new();
+    let total_folds: u64 = planned
+        .iter()
+        .map(|p| p.folds.iter().map(|f| u64::from(f.k)).sum::<u64>())
+        .sum();
+    let mut folds_done = 0;
+    progress.start(Phase::Fit, Some(total_folds));
     for Planned {
         scheme,
         record,
@@ -346,14 +545,25 @@ fn fit_and_write(
             seed: spec.seed,
             exclusion_radius: spec.exclusion_radius,
         };
-        outcomes.push(fit_and_score(data, &plan, folds)?);
+        let run_folds: u64 = folds.iter().map(|f| u64::from(f.k)).sum();
+        let outcome = fit_and_score(data, &plan, folds);
+        folds_done += run_folds;
+        progress.update(folds_done);
+        outcomes.push(outcome?);
         descriptions.push(scheme.describe(&|value| info.length(value)));
         records.push(record);
     }
-    tracing::info!(elapsed_ms = clock.elapsed().as_millis() as u64, "validated");
+    progress.finish(folds_done);
+    tracing::info!(
+        phase = "fit",
+        folds = folds_done,
+        elapsed_ms = clock.elapsed().as_millis() as u64,
+        "validated"
+    );
     let clock = std::time::Instant::now();
     attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
     tracing::info!(
+        phase = "diagnostics",
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "held-out residual Moran's I"
     );
@@ -363,8 +573,18 @@ fn fit_and_write(
         .zip(&outcomes)
         .map(|(record, outcome)| FinishedRun { record, outcome })
         .collect();
-    let report = store.commit(info, data, &finished)?;
+    let rows: u64 = finished
+        .iter()
+        .flat_map(|run| run_rows(data, run, info.srid))
+        .map(|rows| rows.len() as u64)
+        .sum();
+    progress.start(Phase::Write, Some(rows));
+    let report = store.commit(info, data, &finished);
+    progress.finish(if report.is_ok() { rows } else { 0 });
+    let report = report?;
     tracing::info!(
+        phase = "write",
+        rows,
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "wrote results"
     );

@@ -123,6 +123,8 @@ pub struct Summary {
     pub comparison: Option<Comparison>,
     /// Where the results went.
     pub results: StoreReport,
+    /// The drift gates, judged on the stored scores (empty without gates).
+    pub gates: Vec<crate::gates::GateResult>,
 }
 
 impl Summary {
@@ -222,6 +224,7 @@ impl Summary {
             runs,
             comparison,
             results,
+            gates: Vec::new(),
         }
     }
 
@@ -295,6 +298,19 @@ impl Summary {
                 layer.shows,
                 self.runs.first().map(|r| r.run_id.as_str()).unwrap_or("")
             );
+        }
+        if !self.gates.is_empty() {
+            let _ = writeln!(out);
+            for gate in &self.gates {
+                let _ = writeln!(out, "{}", gate.describe());
+            }
+            if crate::gates::any_breached(&self.gates) {
+                let _ = writeln!(
+                    out,
+                    "a drift gate was breached: the results are written; exit code {}",
+                    self.exit_code
+                );
+            }
         }
         let _ = writeln!(
             out,

@@ -18,6 +18,7 @@ use crate::core::models::{build_model, Model};
 use crate::core::options::Options;
 use crate::core::validate::check_repeats;
 use crate::error::Error;
+use crate::gates::{Gate, DEFAULT_BASELINE_RUNS, MAX_BASELINE_RUNS};
 
 /// Where the units come from.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -142,6 +143,20 @@ pub struct RunSpec {
     /// `band:DISTANCE`); None for [`DEFAULT_RESIDUAL_WEIGHTS`].
     #[serde(default)]
     pub residual_weights: Option<String>,
+    /// Drift gates checked after the results are written.
+    #[serde(default)]
+    pub gates: Vec<Gate>,
+    /// How many earlier successful runs the median baseline takes.
+    #[serde(default = "default_baseline_runs")]
+    pub baseline_runs: u32,
+    /// Do nothing when the input and the settings match the job's last
+    /// successful run.
+    #[serde(default)]
+    pub skip_unchanged: bool,
+}
+
+fn default_baseline_runs() -> u32 {
+    DEFAULT_BASELINE_RUNS
 }
 
 /// What checking a specification builds.
@@ -231,6 +246,12 @@ impl RunSpec {
                 self.limits.wait_s
             )));
         }
+        if !(1..=MAX_BASELINE_RUNS).contains(&self.baseline_runs) {
+            return Err(Error::Usage(format!(
+                "--baseline-runs must be from 1 to {MAX_BASELINE_RUNS}, got {}",
+                self.baseline_runs
+            )));
+        }
         let residual_weights = match &self.residual_weights {
             Some(text) => WeightsRule::parse(text)?,
             None => DEFAULT_RESIDUAL_WEIGHTS,
@@ -238,11 +259,41 @@ impl RunSpec {
         residual_weights.for_points()?;
         let scheme = build_scheme(&self.scheme, &self.scheme_options)?;
         let model = build_model(&self.model, &self.model_options)?;
+        for gate in &self.gates {
+            gate.check(model.family())?;
+        }
         Ok(Checked {
             scheme,
             model,
             residual_weights,
         })
+    }
+
+    /// A SHA-256 of every setting that shapes the results from the rows read
+    /// (columns, scheme, model and their options, exclusion radius,
+    /// repetitions, seed, distance SRID, row rules), but not where the rows
+    /// come from or the results go, the connection, the job label, waits or
+    /// gates: two runs with the same hash and the same input fingerprint
+    /// give the same results, and the same settings on PostGIS and on a
+    /// GeoPackage copy hash alike.
+    pub fn settings_hash(&self) -> String {
+        use sha2::{Digest, Sha256};
+        let mut value = serde_json::to_value(self).unwrap_or_default();
+        if let Some(map) = value.as_object_mut() {
+            for key in [
+                "source",
+                "results",
+                "job",
+                "limits",
+                "gates",
+                "baseline_runs",
+                "skip_unchanged",
+            ] {
+                map.remove(key);
+            }
+        }
+        let digest = Sha256::digest(value.to_string().as_bytes());
+        digest.iter().map(|byte| format!("{byte:02x}")).collect()
     }
 }
 
@@ -406,6 +457,9 @@ mod tests {
             job: None,
             limits: Limits::default(),
             residual_weights: None,
+            gates: Vec::new(),
+            baseline_runs: DEFAULT_BASELINE_RUNS,
+            skip_unchanged: false,
         }
     }
 
@@ -430,6 +484,35 @@ mod tests {
     }
 
     #[test]
+    fn the_settings_hash_ignores_where_rows_come_from_and_results_go_and_follows_what_shapes_them()
+    {
+        let base = spec();
+        let mut moved = spec();
+        moved.results = ResultsRef::Postgis {
+            db: Some("host=elsewhere".into()),
+            schema: "other".into(),
+        };
+        moved.job = Some("nightly".into());
+        moved.limits.wait_s = 60.0;
+        moved.gates = crate::gates::parse_all(&["rmse<=1".into()]).unwrap();
+        moved.skip_unchanged = true;
+        moved.source = SourceRef::Gpkg {
+            file: "copy.gpkg".into(),
+            layer: Some("units".into()),
+        };
+        assert_eq!(base.settings_hash(), moved.settings_hash());
+        let mut reseeded = spec();
+        reseeded.seed = 2;
+        assert_ne!(base.settings_hash(), reseeded.settings_hash());
+        let mut resized = spec();
+        resized
+            .scheme_options
+            .insert("block-size".into(), 5000.into());
+        assert_ne!(base.settings_hash(), resized.settings_hash());
+        assert_eq!(base.settings_hash().len(), 64);
+    }
+
+    #[test]
     fn bad_names_and_options_are_refused_before_anything_is_opened() {
         assert!(refused(|s| s.columns.features.push(String::new())).contains("empty entry"));
         assert!(refused(|s| s.columns.features.push("a".into())).contains("twice"));
@@ -448,6 +531,7 @@ mod tests {
         assert!(refused(|s| s.repeats = u32::MAX).contains("--repeats"));
         assert!(refused(|s| s.exclusion_radius = Some(f64::NAN)).contains("--exclusion-radius"));
         assert!(refused(|s| s.limits.lock_timeout_s = 0.0).contains("--lock-timeout"));
+        assert!(refused(|s| s.baseline_runs = 0).contains("--baseline-runs"));
         assert!(refused(|s| {
             s.scheme_options.insert("block-size".into(), 0.into());
         })

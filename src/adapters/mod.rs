@@ -9,8 +9,10 @@
 //! - [`gpkg`]: rusqlite with bundled SQLite, GeoPackageBinary geometries.
 //! - [`sql`]: SQL identifiers and literals, shared by both.
 //! - [`wkb`]: WKB for the region polygons geofold makes.
+//! - [`history`]: reading a job's history back and removing old runs.
 
 pub mod gpkg;
+pub mod history;
 pub mod postgis;
 pub mod sql;
 pub mod wkb;

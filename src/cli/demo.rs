@@ -118,6 +118,9 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
         job: Some(DEMO_JOB.into()),
         limits: Limits::default(),
         residual_weights: None,
+        gates: Vec::new(),
+        baseline_runs: crate::gates::DEFAULT_BASELINE_RUNS,
+        skip_unchanged: false,
     };
     let summary = crate::pipeline::run(&spec)?;
     Ok((summary, hint))

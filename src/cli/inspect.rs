@@ -76,7 +76,7 @@ impl InspectArgs {
         };
         Ok(InspectSpec {
             source,
-            columns: self.source.columns(),
+            columns: self.source.columns()?,
             distance_srid: self.source.distance_srid,
             assume_metres: self.source.assume_metres,
             strict: self.source.strict,

@@ -12,7 +12,8 @@ use clap::Args;
 use crate::adapters::ColumnSpec;
 use crate::core::options::Options;
 use crate::error::Error;
-use crate::report::Summary;
+use crate::pipeline::Outcome;
+use crate::progress::Progress;
 use crate::spec::{
     trimmed, Limits, ResultsRef, RunSpec, SourceRef, DEFAULT_LOCK_TIMEOUT_S,
     DEFAULT_STATEMENT_TIMEOUT_S,
@@ -45,9 +46,9 @@ pub struct SourceArgs {
     pub geom: Option<String>,
     /// Target column (numeric): what the model predicts.
     #[arg(long, value_name = "COLUMN")]
-    pub target: String,
+    pub target: Option<String>,
     /// Feature columns (numeric), comma-separated.
-    #[arg(long, value_name = "A,B,C", value_delimiter = ',', required = true)]
+    #[arg(long, value_name = "A,B,C", value_delimiter = ',')]
     pub features: Vec<String>,
     /// Group column (integer or text, e.g. a district code): every unit of a group is kept in
     /// one fold by --scheme group.
@@ -111,9 +112,13 @@ pub struct ValidationArgs {
 pub struct OutputArgs {
     /// Job label: names the run history and the job's map layers. Default: the schema and
     /// table name (schema_table); for results written into the source GeoPackage, the layer
-    /// name with _cv appended.
+    /// name with _cv appended. With --config: run only this job of the file.
     #[arg(long)]
     pub job: Option<String>,
+    /// Connection for the results, when they are written as another role than the source is
+    /// read (a writer owning the results schema); default: --db.
+    #[arg(long, value_name = "CONNECTION")]
+    pub results_db: Option<String>,
     /// PostGIS schema for results (created when missing).
     #[arg(long, default_value = "geofold", value_name = "SCHEMA")]
     pub results_schema: String,
@@ -141,6 +146,30 @@ pub struct LimitArgs {
     pub wait: f64,
 }
 
+/// Drift gates and scheduling.
+#[derive(Debug, Clone, Args)]
+pub struct ScheduleArgs {
+    /// Run the jobs of this job file (TOML, one [job.NAME] table per job, keys = the long
+    /// options of run), in order, or only --job NAME; options given here override the file.
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+    /// A drift gate on a stored score, repeatable: SCORE OP LIMIT with OP <=, <, >= or >, and
+    /// LIMIT a number (absolute: 'rmse<=1.25') or a signed percentage of the job's baseline
+    /// ('rmse<=+10%': at most 10 % above it; 'r2>=-5%': at most 5 % below it). Lower-is-better
+    /// scores (rmse, mae) take <= or <, higher-is-better ones (r2) >= or >, bias absolute
+    /// limits either way. The baseline is the job's pinned run (geofold pin), else the median
+    /// of its last --baseline-runs successful runs. A breach keeps the results and exits 1.
+    #[arg(long, value_name = "GATE")]
+    pub gate: Vec<String>,
+    /// How many earlier successful runs the median baseline takes (1 to 100).
+    #[arg(long, value_name = "N", default_value_t = crate::gates::DEFAULT_BASELINE_RUNS)]
+    pub baseline_runs: u32,
+    /// Exit 0 at once, writing nothing, when the input fingerprint and the settings match the
+    /// job's last successful run.
+    #[arg(long)]
+    pub skip_unchanged: bool,
+}
+
 /// `geofold run`.
 #[derive(Debug, Clone, Args)]
 #[command(after_long_help = crate::cli::EXIT_STATUS_HELP, allow_negative_numbers = true)]
@@ -157,6 +186,9 @@ pub struct RunArgs {
     #[command(flatten)]
     #[allow(missing_docs)]
     pub limits: LimitArgs,
+    #[command(flatten)]
+    #[allow(missing_docs)]
+    pub schedule: ScheduleArgs,
 }
 
 impl SourceArgs {
@@ -181,15 +213,22 @@ impl SourceArgs {
     }
 
     /// The columns these options name, with the spaces users type around names removed.
-    pub fn columns(&self) -> ColumnSpec {
-        ColumnSpec {
+    ///
+    /// # Errors
+    /// [`Error::Usage`] when no target is named (a job file may name it instead).
+    pub fn columns(&self) -> Result<ColumnSpec, Error> {
+        let target = self
+            .target
+            .as_deref()
+            .ok_or_else(|| Error::Usage("name the target: --target COLUMN".into()))?;
+        Ok(ColumnSpec {
             id: self.id.as_ref().map(|s| s.trim().to_string()),
             geom: self.geom.as_ref().map(|s| s.trim().to_string()),
-            target: self.target.trim().to_string(),
+            target: target.trim().to_string(),
             features: trimmed(&self.features),
             group: self.group_column.as_ref().map(|s| s.trim().to_string()),
             exposure: self.exposure_column.as_ref().map(|s| s.trim().to_string()),
-        }
+        })
     }
 }
 
@@ -204,10 +243,15 @@ impl RunArgs {
             (Some(file), _) => ResultsRef::Gpkg { file: file.clone() },
             (None, SourceRef::Gpkg { file, .. }) => ResultsRef::Gpkg { file: file.clone() },
             (None, SourceRef::Postgis { db, .. }) => ResultsRef::Postgis {
-                db: db.clone(),
+                db: self.output.results_db.clone().or_else(|| db.clone()),
                 schema: self.output.results_schema.clone(),
             },
         };
+        if self.output.results_db.is_some() && !matches!(results, ResultsRef::Postgis { .. }) {
+            return Err(Error::Usage(
+                "--results-db is the connection for PostGIS results; it does not apply to a GeoPackage".into(),
+            ));
+        }
         let v = &self.validation;
         let mut scheme_options = Options::new();
         if let Some(size) = v.block_size {
@@ -221,22 +265,7 @@ impl RunArgs {
         }
         Ok(RunSpec {
             source,
-            columns: ColumnSpec {
-                id: self.source.id.as_ref().map(|s| s.trim().to_string()),
-                geom: self.source.geom.as_ref().map(|s| s.trim().to_string()),
-                target: self.source.target.trim().to_string(),
-                features: trimmed(&self.source.features),
-                group: self
-                    .source
-                    .group_column
-                    .as_ref()
-                    .map(|s| s.trim().to_string()),
-                exposure: self
-                    .source
-                    .exposure_column
-                    .as_ref()
-                    .map(|s| s.trim().to_string()),
-            },
+            columns: self.source.columns()?,
             distance_srid: self.source.distance_srid,
             assume_metres: self.source.assume_metres,
             strict: self.source.strict,
@@ -256,14 +285,17 @@ impl RunArgs {
                 wait_s: self.limits.wait,
             },
             residual_weights: Some(v.residual_weights.clone()),
+            gates: crate::gates::parse_all(&self.schedule.gate)?,
+            baseline_runs: self.schedule.baseline_runs,
+            skip_unchanged: self.schedule.skip_unchanged,
         })
     }
 }
 
-/// Runs `geofold run` and returns its summary.
+/// Runs `geofold run` (one run, no job file).
 ///
 /// # Errors
 /// Any [`Error`]; its exit code is what the process returns.
-pub fn run(args: &RunArgs) -> Result<Summary, Error> {
-    crate::pipeline::run(&args.spec()?)
+pub fn run(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Error> {
+    crate::pipeline::run_with(&args.spec()?, progress)
 }

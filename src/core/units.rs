@@ -304,9 +304,20 @@ pub struct UnitCollector {
     exposure_column: Option<String>,
     groups: Vec<String>,
     exposure: Vec<f64>,
+    row_counter: Option<std::sync::Arc<std::sync::atomic::AtomicU64>>,
 }
 
 impl UnitCollector {
+    /// Also counts every row pushed into `counter`, which another thread may
+    /// read while the rows arrive (a progress display).
+    pub fn with_row_counter(
+        mut self,
+        counter: std::sync::Arc<std::sync::atomic::AtomicU64>,
+    ) -> UnitCollector {
+        self.row_counter = Some(counter);
+        self
+    }
+
     /// Also collects a group column (a row whose group is NULL is skipped).
     pub fn with_group(mut self, column: Option<&str>) -> UnitCollector {
         self.group_column = column.map(str::to_string);
@@ -344,6 +355,7 @@ impl UnitCollector {
             exposure_column: None,
             groups: Vec::new(),
             exposure: Vec::new(),
+            row_counter: None,
         }
     }
 
@@ -381,6 +393,9 @@ impl UnitCollector {
         extras: Extras,
     ) -> Result<(), Error> {
         self.rows_read += 1;
+        if let Some(counter) = &self.row_counter {
+            counter.store(self.rows_read, std::sync::atomic::Ordering::Relaxed);
+        }
         let kind = match id {
             UnitId::Int(_) => IdKind::Integer,
             UnitId::Text(_) => IdKind::Text,

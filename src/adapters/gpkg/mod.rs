@@ -10,7 +10,8 @@
 //! - `container`: new files under a temporary name, crash recovery, the job lock.
 //! - `rtree`: Sort-Tile-Recursive packing of a new R-tree index.
 //! - `read`: [`GpkgSource`].
-//! - `store`: [`GpkgStore`]; `rows`: writing result rows and the job's layers.
+//! - `store`: [`GpkgStore`]; `rows`: writing result rows and the job's layers;
+//!   `history`: fold scores and unit errors of a run, removing runs.
 //!
 //! # Results in a GeoPackage
 //! The results use the table and view names and columns of the PostGIS
@@ -42,6 +43,7 @@
 
 pub mod blob;
 pub(crate) mod container;
+mod history;
 pub mod import;
 mod read;
 mod rows;

@@ -88,6 +88,16 @@ impl GpkgStore {
         })
     }
 
+    /// The open file, None before the first run created it (for [`super::history`]).
+    pub(crate) fn connection(&self) -> Option<&Connection> {
+        self.conn.as_ref()
+    }
+
+    /// The file.
+    pub(crate) fn path(&self) -> &Path {
+        &self.path
+    }
+
     fn conn(&self) -> Result<&Connection, Error> {
         self.conn
             .as_ref()

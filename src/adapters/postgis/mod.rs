@@ -14,6 +14,7 @@
 
 pub mod connect;
 pub mod copy;
+pub mod history;
 pub mod layers;
 pub mod migrate;
 pub mod read;
