@@ -76,7 +76,7 @@ impl PostgisStore {
                    to_char(a.backend_start AT TIME ZONE 'UTC', 'YYYY-MM-DD HH24:MI:SS') \
                    FROM pg_locks l JOIN pg_stat_activity a ON a.pid = l.pid \
                    WHERE l.locktype = 'advisory' AND l.granted \
-                   AND l.classid = ($1::bigint >> 32)::oid AND l.objid = ($1::bigint & 4294967295)::oid \
+                   AND l.classid = (($1::bigint >> 32) & 4294967295)::oid AND l.objid = ($1::bigint & 4294967295)::oid \
                    LIMIT 1";
         match self
             .session
