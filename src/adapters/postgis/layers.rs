@@ -42,6 +42,13 @@ fn unit_geometry(info: &SourceInfo, data: &Dataset) -> (String, String) {
     }
     let column = if info.declared_geometry_type == "GEOGRAPHY" {
         format!("{column}::geometry")
+    } else if srid != 0 {
+        // An untyped column may mix SRIDs (a run with --distance-srid reads
+        // it); the layer shows every row in the source SRID, so the type
+        // modifier below holds for every row.
+        format!(
+            "CASE WHEN ST_SRID({column}) = {srid} THEN {column} ELSE ST_Transform({column}, {srid}) END"
+        )
     } else {
         column
     };
