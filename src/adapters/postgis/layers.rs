@@ -9,8 +9,9 @@
 //! unit view joins the source by the source's own id column, casting only
 //! the results side, so the source's index serves the join.
 //!
-//! A view is replaced only when its definition changes (a hash of both
-//! definitions is kept in `jobs`), because replacing it waits for every
+//! A view is replaced only when its definition or the source table it joins
+//! changes (a hash of both definitions and the table's oid are kept in
+//! `jobs`), because replacing it waits for every
 //! reader that holds it (a GIS with the layer open) and makes new readers
 //! queue behind that wait.
 
