@@ -239,6 +239,7 @@ fn copy(
             &id_column,
             &geometry_column,
             id_kind == IdKind::Integer,
+            layer.geometry_type.starts_with("MULTI"),
             |row| {
                 units.push(row);
                 Ok(())
