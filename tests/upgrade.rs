@@ -84,7 +84,8 @@ fn v1_postgis_store(scratch: &Scratch, job: &str, source: (&str, &str)) {
                1, repeats, 3, 32631, 32631, '0.1.0',
                CASE WHEN status = 'succeeded' THEN 'v1-fingerprint' END,
                CASE WHEN status = 'succeeded' THEN 36 END, CASE WHEN status = 'succeeded' THEN 36 END,
-               CASE WHEN status = 'succeeded' THEN '{}'::jsonb END,
+               CASE WHEN status = 'succeeded'
+                    THEN '{"no_geometry": 0, "empty_geometry": 0, "missing_target": 0, "missing_feature": {}}'::jsonb END,
                CASE WHEN status = 'failed' THEN 'cannot fit fold 2 (repetition 1) with ols: feature b is constant' END
         FROM (VALUES
             ('00000000-0000-4000-8000-00000000000c', NULL, 'succeeded', '2026-01-05 02:00:00+00', '2026-01-05 02:00:03+00', 'grid', 1),

@@ -298,6 +298,8 @@ impl Stores {
             self.assert_same_tables(both, index);
         }
         self.assert_same_job_layers(both);
+        // Every GeoPackage geofold wrote is one GDAL's validator accepts.
+        super::gdal::gdal_validates(&self.results_gpkg);
     }
 
     /// The results tables and views of run `index`, store against store.
