@@ -208,6 +208,18 @@ impl Stores {
         Outcome { store, output, doc }
     }
 
+    /// Runs one store without `--json` and returns the text summary (asserts exit 0).
+    pub fn text(&self, store: Store, args: &[&str]) -> String {
+        let all: Vec<String> = self
+            .args(store, args)
+            .into_iter()
+            .filter(|arg| arg != "--json")
+            .collect();
+        let output = self.workdir.run(&all);
+        assert_eq!(code(&output), 0, "{store:?}: {}", stderr(&output));
+        String::from_utf8_lossy(&output.stdout).into_owned()
+    }
+
     /// Runs both stores with the same arguments.
     pub fn run(&self, args: &[&str]) -> Both {
         Both {

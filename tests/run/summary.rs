@@ -12,14 +12,7 @@ use crate::common::{assert_contains, code, stdout};
 
 /// The text summary of the same run on one store (`--json` left out).
 fn text(stores: &Stores, store: Store, args: &[&str]) -> String {
-    let all: Vec<String> = stores
-        .args(store, args)
-        .into_iter()
-        .filter(|arg| arg != "--json")
-        .collect();
-    let output = stores.workdir.run(&all);
-    assert_eq!(code(&output), 0, "{store:?}");
-    stdout(&output)
+    stores.text(store, args)
 }
 
 fn lattice(label: &str) -> Stores {
