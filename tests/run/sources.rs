@@ -8,7 +8,9 @@
 use crate::common::fixtures::{
     args, create_lattice, create_squares, create_units, grid, utm_lattice, IdType, Lattice,
 };
-use crate::common::gdal::{gdal_layers, gdal_validates, layer, ogrinfo_sql};
+use crate::common::gdal::{
+    gdal_extent, gdal_layers, gdal_validates, layer, numbers_in, ogrinfo_sql,
+};
 use crate::common::pg::{check_qgis_layer, Scratch};
 use crate::common::reference::check_units_sit_in_their_blocks;
 use crate::common::stores::{Stores, BOTH};
@@ -109,6 +111,45 @@ fn mixed_srids_in_one_column_are_refused_naming_each_srid_and_its_rows() {
                                                                ST_SnapToGrid(ST_Multi(ST_Transform(s.geom, 32631)), 0.001)))
          FROM {r}.{s}_mixed v JOIN {s}.mixed s ON s.id = v.unit_id",
     );
+
+    // Exported to a GeoPackage, the per-unit layer holds every unit in the
+    // layer's CRS (EPSG:32631): GDAL's extent of it is PostGIS's extent of
+    // the transformed rows (to a millimetre: GDAL prints six decimals).
+    let export = workdir.run(&[
+        "export",
+        "--db",
+        &crate::common::db_uri(),
+        "--results-schema",
+        &scratch.results,
+        "--job",
+        &scratch.fill("{s}_mixed"),
+        "--to",
+        "mixed.gpkg",
+    ]);
+    assert_eq!(
+        crate::common::code(&export),
+        0,
+        "{}",
+        crate::common::stderr(&export)
+    );
+    let file = workdir.path("mixed.gpkg");
+    let exported = numbers_in(&gdal_extent(&file, &scratch.fill("{s}_mixed")));
+    let expected: Vec<f64> = scratch
+        .query(
+            "SELECT concat_ws(' ', ST_XMin(e), ST_YMin(e), ST_XMax(e), ST_YMax(e))
+             FROM (SELECT ST_Extent(ST_Transform(geom, 32631)) AS e FROM {s}.mixed) x",
+        )
+        .split(' ')
+        .map(|v| v.parse().unwrap())
+        .collect();
+    assert_eq!(exported.len(), 4, "{exported:?}");
+    for (a, b) in exported.iter().zip(&expected) {
+        assert!(
+            (a - b).abs() < 1e-3,
+            "exported extent {exported:?}, PostGIS {expected:?}"
+        );
+    }
+    gdal_validates(&file);
 
     // Rows with SRID 0 cannot be transformed: refused, naming ST_SetSRID.
     scratch.script("UPDATE {s}.mixed SET geom = ST_SetSRID(geom, 0) WHERE id = 5;");
