@@ -248,7 +248,7 @@ fn copy(
             &id_column,
             &geometry_column,
             id_kind == IdKind::Integer,
-            layer.geometry_type.starts_with("MULTI"),
+            (layer.geometry_type.starts_with("MULTI"), source_srid),
             |row| {
                 units.push(row);
                 Ok(())

@@ -189,7 +189,8 @@ impl PostgisStore {
     /// The unit layer of a run: its per-unit errors joined to the source
     /// geometry (2D ISO WKB), in unit id order; `multi` promotes single
     /// geometries to multi ones (for a layer declared MULTI*, as the job's
-    /// PostGIS view casts them).
+    /// PostGIS view casts them), and rows of a column mixing SRIDs are
+    /// transformed to `srid`, the layer's (as the view does).
     ///
     /// # Errors
     /// [`Error::NotFound`] when the source table or its columns are gone.
@@ -201,7 +202,7 @@ impl PostgisStore {
         id_column: &str,
         geometry_column: &str,
         integer_ids: bool,
-        multi: bool,
+        (multi, srid): (bool, i32),
         mut visit: impl FnMut(UnitLayerRow) -> Result<(), Error>,
     ) -> Result<(), Error> {
         let (schema, table) = split_qualified(source_table);
@@ -216,6 +217,14 @@ impl PostgisStore {
             ("text", format!("s.{id}::text"))
         };
         let geometry = format!("s.{}::geometry", quote_ident(geometry_column));
+        let geometry = if srid != 0 {
+            format!(
+                "CASE WHEN ST_SRID({geometry}) IN ({srid}, 0) THEN {geometry} \
+                 ELSE ST_Transform({geometry}, {srid}) END"
+            )
+        } else {
+            geometry
+        };
         let geometry = if multi {
             format!("ST_Multi({geometry})")
         } else {
