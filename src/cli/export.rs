@@ -20,7 +20,7 @@ use crate::adapters::{ResultStore, StoredRun};
 use crate::core::units::IdKind;
 use crate::error::{Error, Location};
 use crate::results::rows::Owned;
-use crate::results::{TableDef, JOBS, RUNS, TABLES};
+use crate::results::{TableDef, INSPECTIONS, JOBS, RUNS, TABLES};
 
 /// `geofold export`.
 #[derive(Debug, Clone, Args)]
@@ -236,10 +236,18 @@ fn copy(
         geometry_type,
         srs_id: source_srs.srs_id,
     };
+    // The job's inspections travel with it (their figures advise its runs).
+    let mut owners = run_ids.to_vec();
+    store.read_rows_by_job(&INSPECTIONS, &primary.job, |row| {
+        if let Owned::Text(id) = column(&INSPECTIONS, &row, "inspection_id") {
+            owners.extend(Uuid::parse_str(id).ok());
+        }
+        Ok(())
+    })?;
     let rows_written = import(&args.to, &[source_srs, distance_srs], &ids, |sink| {
         for table in TABLES.iter().filter(|t| t.name != "jobs") {
             sink.table(table)?;
-            store.read_rows(table, run_ids, |row| sink.row(row))?;
+            store.read_rows(table, &owners, |row| sink.row(row))?;
         }
         let mut units = Vec::new();
         store.unit_layer_rows(

@@ -95,6 +95,15 @@ pub struct TableDef {
 }
 
 impl TableDef {
+    /// The column naming what a row belongs to: `run_id` for a run's rows,
+    /// `analysis_id` for diagnostics of a run or an inspection,
+    /// `inspection_id` for an inspection; None for `jobs`.
+    pub fn owner_column(&self) -> Option<&'static str> {
+        ["run_id", "analysis_id", "inspection_id"]
+            .into_iter()
+            .find(|name| self.columns.iter().any(|c| c.name == *name))
+    }
+
     /// The column names, comma-separated.
     pub fn column_list(&self) -> String {
         self.columns

@@ -156,8 +156,15 @@ impl<'c> Inserter<'c> {
 /// `INSERT INTO table (columns) VALUES (?, …), …` for `rows` rows.
 fn insert_sql(table: &TableDef, rows: usize) -> String {
     let one = format!("({})", vec!["?"; table.columns.len()].join(", "));
+    // An inspection and its figures are immutable records under their own
+    // id: copying a job's runs into a file that already holds its
+    // inspections (a second export) keeps the rows there.
+    let verb = match table.owner_column() {
+        Some("inspection_id" | "analysis_id") => "INSERT OR IGNORE",
+        _ => "INSERT",
+    };
     format!(
-        "INSERT INTO main.{} ({}) VALUES {}",
+        "{verb} INTO main.{} ({}) VALUES {}",
         quote(table.name),
         table.column_list(),
         vec![one; rows].join(", ")

@@ -111,7 +111,8 @@ impl PostgisStore {
         })
     }
 
-    /// Every row of `table` belonging to the runs, in the definition's
+    /// Every row of `table` belonging to the runs or inspections (by its
+    /// [`TableDef::owner_column`]), in the definition's
     /// column order (the serial key of a keyed table is left out: the target
     /// numbers its own).
     ///
@@ -139,11 +140,18 @@ impl PostgisStore {
             ),
             crate::results::Keying::PerUnit => String::new(),
         };
+        let Some(owner) = table.owner_column() else {
+            return Err(Error::Internal(format!(
+                "{} has no run or analysis column to read by",
+                table.name
+            )));
+        };
         let sql = format!(
-            "SELECT {} FROM {}.{} WHERE run_id = ANY($1){order}",
+            "SELECT {} FROM {}.{} WHERE {} = ANY($1){order}",
             columns.join(", "),
             quote_ident(self.schema()),
-            quote_ident(table.name)
+            quote_ident(table.name),
+            quote_ident(owner)
         );
         let action = format!("reading {}.{}", self.schema(), table.name);
         self.stream(&sql, &[&run_ids], &action, |row| {
