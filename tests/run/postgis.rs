@@ -483,10 +483,10 @@ fn a_run_failing_while_writing_leaves_no_rows_and_the_view_keeps_the_last_succes
     let failed: Vec<&str> = failed.lines().collect();
     assert_eq!(failed.len(), 2, "the grid run and its random comparison");
     for run in failed {
-        for table in RUN_TABLES {
+        for (table, owner) in RUN_TABLES {
             assert_eq!(
                 scratch.query(&format!(
-                    "SELECT count(*) FROM {{r}}.{table} WHERE run_id = '{run}'"
+                    "SELECT count(*) FROM {{r}}.{table} WHERE {owner} = '{run}'"
                 )),
                 "0",
                 "{table} rows of failed run {run}"
