@@ -5,8 +5,17 @@
 //! or empty geometry, or a missing / non-finite target or feature, are skipped and
 //! counted by reason; duplicate ids are an error. The result is a [`Dataset`] in
 //! id order, so fold assignment does not depend on the row order of the source.
+//!
+//! # Text features
+//! A feature column of text is categorical: it becomes one 0/1 indicator
+//! column per level (the distinct values, in byte order), named
+//! `column=level`, at the column's place among the features ([`Categorical`]).
+//! Which levels a fold's model uses is decided per fold from its training
+//! units (`models::design`). A NULL text is a missing feature (the row is
+//! skipped); more than [`MAX_LEVELS`] levels is an error.
 
 use std::cmp::Ordering;
+use std::collections::HashMap;
 use std::fmt;
 
 use geo_types::Geometry;
@@ -184,6 +193,36 @@ pub struct Dataset {
     pub groups: Option<Groups>,
     /// Each unit's exposure (e.g. a population at risk), when an exposure column was read.
     pub exposure: Option<Vec<f64>>,
+    /// The text features, one-hot encoded into `features` (empty when none).
+    pub categorical: Vec<Categorical>,
+}
+
+/// Most levels a text feature may have.
+pub const MAX_LEVELS: usize = 100;
+
+/// A text feature, one-hot encoded: the indicator columns of its levels are
+/// `first_column..first_column + levels.len()` of the dataset's features.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Categorical {
+    /// The source column.
+    pub name: String,
+    /// Its distinct values, in byte order.
+    pub levels: Vec<String>,
+    /// The feature index of the first level's indicator.
+    pub first_column: usize,
+}
+
+impl Categorical {
+    /// The indicator columns.
+    pub fn columns(&self) -> std::ops::Range<usize> {
+        self.first_column..self.first_column + self.levels.len()
+    }
+
+    /// The level of unit `i` (the one indicator that is 1).
+    pub fn level_of(&self, data: &Dataset, i: usize) -> usize {
+        let row = &data.features_of(i)[self.columns()];
+        row.iter().position(|&v| v == 1.0).unwrap_or(0)
+    }
 }
 
 /// The group of each unit (e.g. a district code), as codes into sorted names.
@@ -197,14 +236,16 @@ pub struct Groups {
     pub codes: Vec<u32>,
 }
 
-/// The values of the extra columns of one row: a group and an exposure,
-/// each `None` when NULL (or not read).
+/// The values of the extra columns of one row: a group, an exposure and the
+/// text features, each `None` when NULL (or not read).
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Extras {
     /// The group value, as text.
     pub group: Option<String>,
     /// The exposure.
     pub exposure: Option<f64>,
+    /// The values of the text features, in feature order.
+    pub texts: Vec<Option<String>>,
 }
 
 /// Which geometry families the used units have, so writers can type their columns.
@@ -304,9 +345,21 @@ pub struct UnitCollector {
     exposure_column: Option<String>,
     groups: Vec<String>,
     exposure: Vec<f64>,
+    /// Per feature, whether it is text.
+    text: Vec<bool>,
+    /// Per text feature, its levels in first-seen order (codes are positions).
+    levels: Vec<HashMap<String, u32>>,
 }
 
 impl UnitCollector {
+    /// Marks which features are text columns (one flag per feature); their
+    /// values come in [`Extras::texts`].
+    pub fn with_text_features(mut self, text: &[bool]) -> UnitCollector {
+        self.text = text.to_vec();
+        self.levels = vec![HashMap::new(); text.iter().filter(|&&t| t).count()];
+        self
+    }
+
     /// Also collects a group column (a row whose group is NULL is skipped).
     pub fn with_group(mut self, column: Option<&str>) -> UnitCollector {
         self.group_column = column.map(str::to_string);
@@ -344,6 +397,8 @@ impl UnitCollector {
             exposure_column: None,
             groups: Vec::new(),
             exposure: Vec::new(),
+            text: vec![false; feature_names.len()],
+            levels: Vec::new(),
         }
     }
 
@@ -414,10 +469,15 @@ impl UnitCollector {
                 return Ok(());
             }
         };
-        if let Some(index) = features
-            .iter()
-            .position(|value| !matches!(value, Some(v) if v.is_finite()))
-        {
+        let text = &self.text;
+        let mut texts = extras.texts.iter();
+        if let Some(index) = features.iter().enumerate().position(|(j, value)| {
+            if text.get(j).copied().unwrap_or(false) {
+                texts.next().is_none_or(Option::is_none)
+            } else {
+                !matches!(value, Some(v) if v.is_finite())
+            }
+        }) {
             let column = self.feature_names[index].clone();
             self.skip(
                 id,
@@ -465,8 +525,19 @@ impl UnitCollector {
             _ => self.geometry_kinds.other = true,
         }
         self.rows.push((id, point, target));
-        self.features
-            .extend(features.iter().map(|value| value.unwrap_or(f64::NAN)));
+        let mut texts = extras.texts.into_iter().flatten();
+        let mut k = 0;
+        for (j, value) in features.iter().enumerate() {
+            if self.text.get(j).copied().unwrap_or(false) {
+                let level = texts.next().unwrap_or_default();
+                let known = self.levels[k].len() as u32;
+                let code = *self.levels[k].entry(level).or_insert(known);
+                self.features.push(f64::from(code));
+                k += 1;
+            } else {
+                self.features.push(value.unwrap_or(f64::NAN));
+            }
+        }
         Ok(())
     }
 
@@ -551,20 +622,112 @@ impl UnitCollector {
         let exposure = self
             .exposure_column
             .map(|_| order.iter().map(|&index| self.exposure[index]).collect());
+        let (features, feature_names, categorical) = one_hot(
+            &self.table,
+            &self.feature_names,
+            &self.text,
+            self.levels,
+            features,
+        )?;
         Ok(Dataset {
             ids,
             points,
             target,
             features,
-            feature_names: self.feature_names,
+            feature_names,
             id_kind: self.id_kind.unwrap_or(IdKind::Integer),
             geometry_kinds: self.geometry_kinds,
             rows_read: self.rows_read,
             skipped: self.skipped,
             groups,
             exposure,
+            categorical,
         })
     }
+}
+
+/// Expands the text features (whose values are first-seen codes) into 0/1
+/// indicator columns of their levels in byte order.
+type Encoded = (Vec<f64>, Vec<String>, Vec<Categorical>);
+
+fn one_hot(
+    table: &str,
+    names: &[String],
+    text: &[bool],
+    levels: Vec<HashMap<String, u32>>,
+    features: Vec<f64>,
+) -> Result<Encoded, Error> {
+    if !text.contains(&true) {
+        return Ok((features, names.to_vec(), Vec::new()));
+    }
+    let m = names.len();
+    // Per text feature: the sorted levels, and first-seen code → sorted position.
+    let mut sorted: Vec<(Vec<String>, Vec<usize>)> = Vec::new();
+    for (k, map) in levels.into_iter().enumerate() {
+        let name = names
+            .iter()
+            .zip(text)
+            .filter(|(_, &t)| t)
+            .nth(k)
+            .map(|(n, _)| n.clone())
+            .unwrap_or_default();
+        if map.len() > MAX_LEVELS {
+            return Err(Error::input(
+                table,
+                Some(&name),
+                None,
+                format!(
+                    "text feature has {} distinct values; a categorical feature may have at most {MAX_LEVELS}",
+                    map.len()
+                ),
+            ));
+        }
+        let mut pairs: Vec<(String, u32)> = map.into_iter().collect();
+        pairs.sort_by(|a, b| a.0.as_bytes().cmp(b.0.as_bytes()));
+        let mut position = vec![0usize; pairs.len()];
+        for (at, (_, code)) in pairs.iter().enumerate() {
+            position[*code as usize] = at;
+        }
+        sorted.push((
+            pairs.into_iter().map(|(level, _)| level).collect(),
+            position,
+        ));
+    }
+    let mut new_names = Vec::new();
+    let mut categorical = Vec::new();
+    let mut k = 0;
+    for (j, name) in names.iter().enumerate() {
+        if text[j] {
+            categorical.push(Categorical {
+                name: name.clone(),
+                levels: sorted[k].0.clone(),
+                first_column: new_names.len(),
+            });
+            new_names.extend(sorted[k].0.iter().map(|level| format!("{name}={level}")));
+            k += 1;
+        } else {
+            new_names.push(name.clone());
+        }
+    }
+    let width = new_names.len();
+    let n = features.len().checked_div(m).unwrap_or(0);
+    let mut expanded = vec![0.0; n * width];
+    for i in 0..n {
+        let (mut at, mut k) = (i * width, 0);
+        for j in 0..m {
+            let value = features[i * m + j];
+            if text[j] {
+                let (levels, position) = &sorted[k];
+                expanded[at + position[value as usize]] = 1.0;
+                at += levels.len();
+                k += 1;
+            } else {
+                expanded[at] = value;
+                at += 1;
+            }
+        }
+    }
+    Ok((expanded, new_names, categorical))
 }
 
 #[cfg(test)]

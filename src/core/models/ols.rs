@@ -22,7 +22,7 @@ use std::sync::Arc;
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
-use super::linear::{self, LinearFit, Standardise, Triangle};
+use super::linear::{self, Standardise};
 use super::{model_params, FitError, Fitted, Model, ModelEntry, TrainingSet};
 use crate::core::folds::FoldSet;
 use crate::core::metrics::Family;
@@ -88,13 +88,8 @@ impl Model for Ols {
     fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError> {
         let data = training.data;
         let standardise = Arc::new(Standardise::of(data));
-        let triangle = Triangle::of_units(data, &standardise, training.rows.iter().copied());
-        let beta = linear::solve(&triangle, &standardise, &data.feature_names)?;
-        Ok(Box::new(LinearFit::new(
-            standardise,
-            Arc::new(data.feature_names.clone()),
-            beta,
-        )))
+        let solver = linear::least_squares(data, standardise.clone());
+        linear::fit_rows(data, &standardise, training.rows, solver.as_ref())
     }
 
     fn fit_folds(
@@ -102,7 +97,14 @@ impl Model for Ols {
         data: &Dataset,
         folds: &FoldSet,
     ) -> Option<Vec<Result<Box<dyn Fitted>, FitError>>> {
-        Some(linear::fit_folds(data, folds))
+        let standardise = Arc::new(Standardise::of(data));
+        let solver = linear::least_squares(data, standardise.clone());
+        Some(linear::fit_folds(
+            data,
+            folds,
+            &standardise,
+            solver.as_ref(),
+        ))
     }
 }
 
