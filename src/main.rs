@@ -37,6 +37,10 @@ fn main() {
             args.json,
             geofold::cli::export::run(args).map(Output::Export),
         ),
+        Command::Score(args) => (
+            args.json,
+            geofold::cli::score::run(args).map(Output::Summary),
+        ),
     };
     std::process::exit(finish(json, outcome));
 }

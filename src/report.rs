@@ -3,13 +3,19 @@
 //! Both come from one [`Summary`], built from the core's outcomes and the
 //! store's report, so the text and the JSON never disagree. Folds and
 //! repetitions are numbered from 1, as in the tables.
+//!
+//! Every run shows its scores beside the training-mean (intercept-only)
+//! baseline on the same folds, each fitted term's spread across folds (how
+//! stable the fitted relationship is across space), and the counts of
+//! predictions made by a fallback rule. A run made with `--assign-only`
+//! shows its folds and the next step instead of scores.
 
 use std::fmt::Write as _;
 
 use serde::Serialize;
 
 use crate::adapters::{SourceInfo, StoreReport};
-use crate::core::metrics::{score_def, Better, Scores, Spread};
+use crate::core::metrics::{score_def, spread, Better, Scores, Spread, THRESHOLD};
 use crate::core::units::{Dataset, Skipped};
 use crate::core::validate::RunOutcome;
 use crate::results::rows::RunRecord;
@@ -72,6 +78,55 @@ pub struct RunSummary {
     pub baseline: Scores,
     /// Per fold and repetition.
     pub folds: Vec<FoldSummary>,
+    /// Each fitted term's spread over all folds of all repetitions.
+    pub coefficients: Vec<TermSpread>,
+    /// Held-out predictions made by a fallback rule or with all-zero
+    /// indicators: `(what, units)`.
+    pub notes: Vec<(String, usize)>,
+}
+
+/// A fitted term across folds.
+#[derive(Debug, Clone, Serialize)]
+pub struct TermSpread {
+    /// The term.
+    pub term: String,
+    /// Folds that estimated it.
+    pub folds: usize,
+    /// Mean of the estimates.
+    pub mean: f64,
+    /// Their sample SD (NaN with one fold).
+    pub sd: f64,
+    /// Smallest estimate.
+    pub min: f64,
+    /// Largest estimate.
+    pub max: f64,
+}
+
+/// Each term's spread over the folds of an outcome, in first-seen order.
+fn term_spreads(outcome: &RunOutcome) -> Vec<TermSpread> {
+    let mut terms: Vec<(String, Vec<f64>)> = Vec::new();
+    for fold in outcome.repetitions.iter().flat_map(|r| &r.fold_results) {
+        for (term, estimate) in &fold.coefficients {
+            match terms.iter_mut().find(|(t, _)| t == term) {
+                Some((_, values)) => values.push(*estimate),
+                None => terms.push((term.clone(), vec![*estimate])),
+            }
+        }
+    }
+    terms
+        .into_iter()
+        .map(|(term, values)| {
+            let s = spread(values.iter().copied());
+            TermSpread {
+                term,
+                folds: values.len(),
+                mean: s.mean,
+                sd: s.sd,
+                min: values.iter().copied().fold(f64::INFINITY, f64::min),
+                max: values.iter().copied().fold(f64::NEG_INFINITY, f64::max),
+            }
+        })
+        .collect()
 }
 
 /// How much more optimistic the random folds were than the spatial ones.
@@ -118,6 +173,8 @@ pub struct Summary {
     pub runs: Vec<RunSummary>,
     /// Spatial versus random, when both ran.
     pub comparison: Option<Comparison>,
+    /// True for a run made with `--assign-only`: folds recorded, no fit.
+    pub assign_only: bool,
     /// Where the results went.
     pub results: StoreReport,
 }
@@ -179,6 +236,8 @@ impl Summary {
                                 })
                         })
                         .collect(),
+                    coefficients: term_spreads(outcome),
+                    notes: outcome.notes.clone(),
                 }
             })
             .collect();
@@ -214,8 +273,17 @@ impl Summary {
             input_fingerprint: data.fingerprint(),
             runs,
             comparison,
+            assign_only: false,
             results,
         }
+    }
+
+    /// The summary of a run made with `--assign-only` (status `assigned`).
+    pub fn assigned(mut self) -> Summary {
+        self.status = "assigned";
+        self.assign_only = true;
+        self.comparison = None;
+        self
     }
 
     /// The human summary.
@@ -263,7 +331,11 @@ impl Summary {
             }
         }
         for run in &self.runs {
-            self.run_text(&mut out, run);
+            if self.assign_only {
+                self.assigned_text(&mut out, run);
+            } else {
+                self.run_text(&mut out, run);
+            }
         }
         if let Some(c) = &self.comparison {
             let _ = writeln!(out);
@@ -295,6 +367,39 @@ impl Summary {
              domain judgment, local rules or licensed practice."
         );
         out
+    }
+
+    fn assigned_text(&self, out: &mut String, run: &RunSummary) {
+        let _ = writeln!(out);
+        let _ = writeln!(
+            out,
+            "{} run {} ({}): folds assigned for a model fitted outside geofold, seed {}, {} repetition(s)",
+            run.scheme, run.run_id, run.role, run.seed, run.repeats
+        );
+        let _ = writeln!(out, "  {}", run.scheme_described);
+        for warning in &run.warnings {
+            let _ = writeln!(out, "  warning: {warning}");
+        }
+        let _ = writeln!(
+            out,
+            "  {:>10} {:>5} {:>9} {:>8} {:>9}",
+            "repetition", "fold", "n_train", "n_test", "excluded"
+        );
+        for fold in run.folds.iter().take(30) {
+            let _ = writeln!(
+                out,
+                "  {:>10} {:>5} {:>9} {:>8} {:>9}",
+                fold.repetition, fold.fold, fold.n_train, fold.n_test, fold.n_excluded
+            );
+        }
+        let _ = writeln!(
+            out,
+            "  next: read each unit's fold from fold_members (run_id {}; units excluded from a fold's training \
+             set are in fold_exclusions), fit each fold on the units outside it, load the held-out predictions \
+             (unit_id, repetition, fold, predicted) into a table or layer, then run geofold score --run {} \
+             --predictions TABLE",
+            run.run_id, run.run_id
+        );
     }
 
     fn run_text(&self, out: &mut String, run: &RunSummary) {
@@ -399,6 +504,12 @@ impl Summary {
             "  training-mean baseline on the same folds: {}",
             baseline.join("  ")
         );
+        if names.contains(&"accuracy") {
+            let _ = writeln!(
+                out,
+                "  (binary: predictions are probabilities of 1; accuracy counts p >= {THRESHOLD} as 1)"
+            );
+        }
         let spread: Vec<String> = run
             .fold_spread
             .iter()
@@ -418,6 +529,34 @@ impl Summary {
                 run.repeats,
                 spread.join("  ")
             );
+        }
+        for (note, units) in &run.notes {
+            let _ = writeln!(out, "  {units} held-out predictions: {note}");
+        }
+        if !run.coefficients.is_empty() {
+            let _ = writeln!(
+                out,
+                "  coefficients across folds (mean ± SD, range; per unit of each feature):"
+            );
+            for term in run.coefficients.iter().take(20) {
+                let _ = writeln!(
+                    out,
+                    "    {:<24} {} ± {}  [{} … {}]  ({} folds)",
+                    term.term,
+                    number(term.mean),
+                    number(term.sd),
+                    number(term.min),
+                    number(term.max),
+                    term.folds
+                );
+            }
+            if run.coefficients.len() > 20 {
+                let _ = writeln!(
+                    out,
+                    "    and {} more terms (table coefficients, or --json)",
+                    run.coefficients.len() - 20
+                );
+            }
         }
         if let Some(r2) = run.pooled.get("r2") {
             if r2 < 0.0 {
@@ -458,6 +597,11 @@ fn label(name: &str) -> String {
     match name {
         "r2" => "R²".into(),
         "bias" => "bias".into(),
+        "log_loss" => "log-loss".into(),
+        "brier" => "Brier".into(),
+        "roc_auc" => "AUC".into(),
+        "accuracy" => "accuracy".into(),
+        "poisson_deviance" => "deviance".into(),
         other => other.to_uppercase(),
     }
 }

@@ -117,6 +117,8 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
         results,
         job: Some(DEMO_JOB.into()),
         limits: Limits::default(),
+        assign_only: false,
+        unseen_levels: Default::default(),
     };
     let summary = crate::pipeline::run(&spec)?;
     Ok((summary, hint))

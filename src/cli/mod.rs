@@ -4,6 +4,7 @@
 pub mod demo;
 pub mod export;
 pub mod run;
+pub mod score;
 
 use clap::{Parser, Subcommand};
 
@@ -13,8 +14,11 @@ EXIT STATUS
   0   ok: results written
   2   busy: another run of the same job is running (see --wait); nothing was done
   64  usage: bad options or arguments
-  65  bad input data: duplicate ids, a row skipped under --strict, an unfittable fold,
-      a geometry column mixing SRIDs, a results store geofold did not make
+  65  bad input data: duplicate ids, a row skipped under --strict, an unfittable fold
+      (constant or collinear feature, separation, no convergence), a target that does not
+      fit the model (not 0/1, a negative or non-integer count, a non-positive exposure), a
+      held-out level unseen in training, predictions for geofold score that miss, repeat or
+      misplace units, a geometry column mixing SRIDs, a results store geofold did not make
   66  the source table, schema, column, file or layer does not exist
   69  the database server is unreachable, or PostGIS is not installed
   70  internal error (a bug: please report it)
@@ -58,4 +62,7 @@ pub enum Command {
     Demo(demo::DemoArgs),
     /// Copy one run's results (or a job's latest) from PostGIS into a GeoPackage.
     Export(export::ExportArgs),
+    /// Score the held-out predictions of a model fitted elsewhere, for a run made with
+    /// geofold run --assign-only.
+    Score(score::ScoreArgs),
 }
