@@ -451,10 +451,10 @@ fn fit_and_write(
         spec.exclusion_radius,
         report,
     );
-    Ok(if spec.assign_only {
-        summary.assigned()
-    } else {
-        summary
+    Ok(match (spec.assign_only, checked.model.uses_features()) {
+        (true, _) => summary.assigned(),
+        (false, false) => summary.location_only(),
+        (false, true) => summary,
     })
 }
 

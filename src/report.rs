@@ -175,6 +175,9 @@ pub struct Summary {
     pub comparison: Option<Comparison>,
     /// True for a run made with `--assign-only`: folds recorded, no fit.
     pub assign_only: bool,
+    /// False for a model that uses location only (the features were read
+    /// so that it validates the same units).
+    pub features_used: bool,
     /// Where the results went.
     pub results: StoreReport,
 }
@@ -274,8 +277,15 @@ impl Summary {
             runs,
             comparison,
             assign_only: false,
+            features_used: true,
             results,
         }
+    }
+
+    /// The summary of a model that uses location only.
+    pub fn location_only(mut self) -> Summary {
+        self.features_used = false;
+        self
     }
 
     /// The summary of a run made with `--assign-only` (status `assigned`).
@@ -295,13 +305,25 @@ impl Summary {
             "job {}: {} units used of {} rows read from {} ({})",
             self.job, self.units_used, self.units_read, source.table, source.store
         );
-        let _ = writeln!(
-            out,
-            "validated: {} predicted from {} with {}",
-            source.target_column,
-            source.feature_columns.join(", "),
-            self.model
-        );
+        let features = source.feature_columns.join(", ");
+        let _ = match (self.assign_only, self.features_used) {
+            (true, _) => writeln!(
+                out,
+                "folds assigned: {} to be predicted from {features} by {}",
+                source.target_column, self.model
+            ),
+            (false, true) => writeln!(
+                out,
+                "validated: {} predicted from {features} with {}",
+                source.target_column, self.model
+            ),
+            (false, false) => writeln!(
+                out,
+                "validated: {} predicted from location with {} ({features} read only so that the same units are \
+                 validated as by models that use them)",
+                source.target_column, self.model
+            ),
+        };
         if let Some(radius) = self.exclusion_radius {
             let _ = writeln!(
                 out,

@@ -117,6 +117,10 @@ impl Model for Idw {
         )
     }
 
+    fn uses_features(&self) -> bool {
+        false
+    }
+
     fn min_training_units(&self, _n_features: usize) -> usize {
         1
     }

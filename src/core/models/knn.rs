@@ -105,6 +105,10 @@ impl Model for Knn {
         )
     }
 
+    fn uses_features(&self) -> bool {
+        false
+    }
+
     fn min_training_units(&self, _n_features: usize) -> usize {
         1
     }

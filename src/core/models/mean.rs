@@ -62,6 +62,10 @@ impl Model for Mean {
         "the training mean (intercept only)".to_string()
     }
 
+    fn uses_features(&self) -> bool {
+        false
+    }
+
     fn min_training_units(&self, _n_features: usize) -> usize {
         1
     }

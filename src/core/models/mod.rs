@@ -217,6 +217,11 @@ pub trait Model: Send + Sync {
     fn parameters(&self) -> serde_json::Value;
     /// One line in plain words, e.g. `ordinary least squares with intercept`.
     fn describe(&self) -> String;
+    /// Whether predictions use the features (false for the location-only
+    /// families, which read them only so that they validate the same units).
+    fn uses_features(&self) -> bool {
+        true
+    }
     /// Fewest training units the family needs with `n_features` features.
     fn min_training_units(&self, n_features: usize) -> usize;
     /// Fits on the training units.
