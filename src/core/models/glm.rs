@@ -76,11 +76,6 @@ pub enum Link {
     Log,
 }
 
-/// `log(1 + e^x)` without overflow or loss.
-fn softplus(x: f64) -> f64 {
-    x.max(0.0) + (-x.abs()).exp().ln_1p()
-}
-
 impl Link {
     /// μ from η.
     pub fn mean(self, eta: f64) -> f64 {
@@ -94,31 +89,28 @@ impl Link {
         }
     }
 
-    /// The IRLS weight dμ/dη at η (never exactly zero for a finite η).
-    fn weight(self, eta: f64, mu: f64) -> f64 {
+    /// μ, the IRLS weight dμ/dη (never exactly zero for a finite η) and
+    /// the unit deviance at η, with one exponential (and for the logit one
+    /// `ln_1p`); `y_log_y` is `y ln y` (0 for y = 0), fixed per unit.
+    fn at(self, y: f64, y_log_y: f64, eta: f64) -> (f64, f64, f64) {
         match self {
             Link::Logit => {
+                // e = e^{−|η|}; the deviance is −2 log-likelihood:
+                // 2 log(1 + e^{−η}) for y = 1, 2 log(1 + e^η) for y = 0.
                 let e = (-eta.abs()).exp();
-                e / ((1.0 + e) * (1.0 + e))
-            }
-            Link::Log => mu,
-        }
-    }
-
-    /// The unit deviance at η.
-    fn deviance(self, y: f64, eta: f64, mu: f64) -> f64 {
-        match self {
-            // −2 log-likelihood: 2 log(1 + e^{−η}) for y = 1, 2 log(1 + e^η) for y = 0.
-            Link::Logit => {
-                2.0 * if y > 0.5 {
-                    softplus(-eta)
+                let mu = if eta >= 0.0 {
+                    1.0 / (1.0 + e)
                 } else {
-                    softplus(eta)
-                }
+                    e / (1.0 + e)
+                };
+                let w = e / ((1.0 + e) * (1.0 + e));
+                let signed = if y > 0.5 { -eta } else { eta };
+                (mu, w, 2.0 * (signed.max(0.0) + e.ln_1p()))
             }
             Link::Log => {
-                let log_term = if y > 0.0 { y * (y.ln() - eta) } else { 0.0 };
-                2.0 * (log_term - (y - mu))
+                let mu = eta.exp();
+                let log_term = if y > 0.0 { y_log_y - y * eta } else { 0.0 };
+                (mu, mu, 2.0 * (log_term - (y - mu)))
             }
         }
     }
@@ -143,6 +135,8 @@ struct Design {
     /// Row-major standardised features, `n × q`.
     x: Vec<f64>,
     y: Vec<f64>,
+    /// `y ln y` (0 for y = 0), for the Poisson deviance.
+    y_log_y: Vec<f64>,
     offset: Option<Vec<f64>>,
     means: Vec<f64>,
     sds: Vec<f64>,
@@ -204,7 +198,11 @@ fn build_design(
             x[i * q + j] = (x[i * q + j] - means[j]) / sds[j];
         }
     }
-    let y = rows.iter().map(|&u| data.target[u as usize]).collect();
+    let y: Vec<f64> = rows.iter().map(|&u| data.target[u as usize]).collect();
+    let y_log_y = y
+        .iter()
+        .map(|&v| if v > 0.0 { v * v.ln() } else { 0.0 })
+        .collect();
     let offset = data
         .exposure
         .as_ref()
@@ -214,6 +212,7 @@ fn build_design(
         q,
         x,
         y,
+        y_log_y,
         offset,
         means,
         sds,
@@ -237,10 +236,9 @@ fn pass(link: Link, design: &Design, beta: &[f64]) -> Pass {
     for i in 0..design.n {
         z[1..].copy_from_slice(design.row(i));
         let eta = design.eta(beta, i);
-        let mu = link.mean(eta);
-        let w = link.weight(eta, mu);
         let y = design.y[i];
-        deviance += link.deviance(y, eta, mu);
+        let (mu, w, unit_deviance) = link.at(y, design.y_log_y[i], eta);
+        deviance += unit_deviance;
         let r = y - mu;
         for a in 0..p {
             gradient[a] += r * z[a];
