@@ -96,8 +96,8 @@ pub fn job_of(spec: &RunSpec, info: &SourceInfo) -> String {
 
 /// Refuses a scheme that needs distances on a CRS in degrees or without
 /// units, saying how to fix the data.
-fn check_crs(spec: &RunSpec, info: &mut SourceInfo, scheme: &dyn FoldScheme) -> Result<(), Error> {
-    if !(scheme.needs_distances() || spec.exclusion_radius.is_some()) {
+fn check_crs(spec: &RunSpec, info: &mut SourceInfo, needs_distances: bool) -> Result<(), Error> {
+    if !(needs_distances || spec.exclusion_radius.is_some()) {
         return Ok(());
     }
     let what = format!("{}.{}", info.table, info.geom_column);
@@ -271,7 +271,8 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
     let checked = spec.check()?;
     let mut source = open_source(spec)?;
     let mut info = source.info().clone();
-    check_crs(spec, &mut info, checked.scheme.as_ref())?;
+    let needs_distances = checked.scheme.needs_distances() || checked.model.needs_distances();
+    check_crs(spec, &mut info, needs_distances)?;
     let job = job_of(spec, &info);
     crate::adapters::check_job(&job)?;
     let mut store = open_store(spec)?;

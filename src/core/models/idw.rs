@@ -121,6 +121,10 @@ impl Model for Idw {
         false
     }
 
+    fn needs_distances(&self) -> bool {
+        true
+    }
+
     fn min_training_units(&self, _n_features: usize) -> usize {
         1
     }

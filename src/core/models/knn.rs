@@ -109,6 +109,10 @@ impl Model for Knn {
         false
     }
 
+    fn needs_distances(&self) -> bool {
+        true
+    }
+
     fn min_training_units(&self, _n_features: usize) -> usize {
         1
     }

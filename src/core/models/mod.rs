@@ -222,6 +222,11 @@ pub trait Model: Send + Sync {
     fn uses_features(&self) -> bool {
         true
     }
+    /// Whether predictions use distances between representative points (so
+    /// the CRS must be in a known length unit, as for distance-based schemes).
+    fn needs_distances(&self) -> bool {
+        false
+    }
     /// Fewest training units the family needs with `n_features` features.
     fn min_training_units(&self, n_features: usize) -> usize;
     /// Fits on the training units.
