@@ -428,7 +428,9 @@ fn idw_and_knn_match_brute_force_and_the_columbus_baselines_on_both_stores() {
     .map(number)
     .collect();
     // REFERENCES.md §2.4 [COMP numpy; sklearn KNeighborsRegressor], to 9 decimals.
-    let cases: [(&[&str], Option<f64>, usize, f64, f64); 2] = [
+    /// Options, IDW power, neighbours, reference RMSE and MAE.
+    type Baseline<'a> = (&'a [&'a str], Option<f64>, usize, f64, f64);
+    let cases: [Baseline<'_>; 2] = [
         (
             &["--model", "idw", "--neighbours", "48", "--power", "2"],
             Some(2.0),

@@ -285,8 +285,12 @@ impl<'a> Store<'a> {
             StoreKind::Gpkg => {
                 let conn = rusqlite::Connection::open(self.gpkg.as_ref().expect("a file"))
                     .expect("open the GeoPackage");
-                conn.execute_batch(&sql.replace("{s}", ""))
-                    .expect("SQL on the GeoPackage");
+                // The R-tree triggers GDAL wrote call ST_IsEmpty and friends.
+                geofold::adapters::gpkg::schema::register_functions(&conn)
+                    .expect("the GeoPackage SQL functions");
+                if let Err(error) = conn.execute_batch(&sql.replace("{s}", "")) {
+                    panic!("SQL on the GeoPackage failed: {error}\n{sql}");
+                }
             }
         }
     }

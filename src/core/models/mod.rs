@@ -163,7 +163,8 @@ impl fmt::Display for FitError {
             ),
             FitError::Constant { feature, value } => write!(
                 f,
-                "feature {feature} is constant ({value}) on the training units, so it is collinear with the intercept"
+                "feature {feature} is constant ({}) on the training units, so it is collinear with the intercept",
+                rounded(*value)
             ),
             FitError::Collinear {
                 term,
@@ -206,6 +207,18 @@ impl fmt::Display for FitError {
 }
 
 impl std::error::Error for FitError {}
+
+/// A value with at most 9 decimals and no trailing zeros: a constant
+/// recovered from a factorisation (4.999999999999998) reads as 5.
+fn rounded(value: f64) -> String {
+    let text = format!("{value:.9}");
+    let text = text.trim_end_matches('0').trim_end_matches('.');
+    if text == "-0" {
+        "0".to_string()
+    } else {
+        text.to_string()
+    }
+}
 
 /// A model family with its options.
 pub trait Model: Send + Sync {
