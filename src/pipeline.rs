@@ -137,6 +137,29 @@ fn check_crs(spec: &RunSpec, info: &mut SourceInfo, needs_distances: bool) -> Re
     }
 }
 
+/// Reads every row of the source through the collector (the input-hygiene
+/// rules, with the group, exposure and text features the source has).
+///
+/// # Errors
+/// As [`Source::read`] and [`UnitCollector::finish`].
+pub fn read_units(
+    source: &mut dyn Source,
+    info: &SourceInfo,
+    strict: bool,
+) -> Result<Dataset, Error> {
+    let mut collector = UnitCollector::new(
+        &info.table,
+        &info.target_column,
+        &info.feature_columns,
+        strict,
+    )
+    .with_group(info.group_column.as_deref())
+    .with_exposure(info.exposure_column.as_deref())
+    .with_text_features(&info.text_features);
+    source.read(&mut collector)?;
+    collector.finish(&info.id_column)
+}
+
 /// `host:pid` of this process, recorded with its runs.
 fn session_name() -> String {
     let host = std::fs::read_to_string("/proc/sys/kernel/hostname")
@@ -279,18 +302,8 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
     store.lock_job(&job, spec.limits.wait())?;
 
     let clock = std::time::Instant::now();
-    let mut collector = UnitCollector::new(
-        &info.table,
-        &info.target_column,
-        &info.feature_columns,
-        spec.strict,
-    )
-    .with_group(info.group_column.as_deref())
-    .with_exposure(info.exposure_column.as_deref())
-    .with_text_features(&info.text_features);
-    source.read(&mut collector)?;
+    let data = read_units(source.as_mut(), &info, spec.strict)?;
     drop(source);
-    let data = collector.finish(&info.id_column)?;
     if data.is_empty() {
         let reasons = data.skipped.describe();
         return Err(Error::input(

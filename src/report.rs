@@ -15,10 +15,15 @@ use std::fmt::Write as _;
 use serde::Serialize;
 
 use crate::adapters::{SourceInfo, StoreReport};
-use crate::core::metrics::{score_def, spread, Better, Scores, Spread, THRESHOLD};
+use crate::core::metrics::{score_def, Better, Scores, Spread, THRESHOLD};
 use crate::core::units::{Dataset, Skipped};
 use crate::core::validate::RunOutcome;
 use crate::results::rows::RunRecord;
+
+mod terms;
+
+use terms::term_spreads;
+pub use terms::TermSpread;
 
 /// Version of the `--json` document layout.
 pub const JSON_SCHEMA_VERSION: u32 = 2;
@@ -83,50 +88,6 @@ pub struct RunSummary {
     /// Held-out predictions made by a fallback rule or with all-zero
     /// indicators: `(what, units)`.
     pub notes: Vec<(String, usize)>,
-}
-
-/// A fitted term across folds.
-#[derive(Debug, Clone, Serialize)]
-pub struct TermSpread {
-    /// The term.
-    pub term: String,
-    /// Folds that estimated it.
-    pub folds: usize,
-    /// Mean of the estimates.
-    pub mean: f64,
-    /// Their sample SD (NaN with one fold).
-    pub sd: f64,
-    /// Smallest estimate.
-    pub min: f64,
-    /// Largest estimate.
-    pub max: f64,
-}
-
-/// Each term's spread over the folds of an outcome, in first-seen order.
-fn term_spreads(outcome: &RunOutcome) -> Vec<TermSpread> {
-    let mut terms: Vec<(String, Vec<f64>)> = Vec::new();
-    for fold in outcome.repetitions.iter().flat_map(|r| &r.fold_results) {
-        for (term, estimate) in &fold.coefficients {
-            match terms.iter_mut().find(|(t, _)| t == term) {
-                Some((_, values)) => values.push(*estimate),
-                None => terms.push((term.clone(), vec![*estimate])),
-            }
-        }
-    }
-    terms
-        .into_iter()
-        .map(|(term, values)| {
-            let s = spread(values.iter().copied());
-            TermSpread {
-                term,
-                folds: values.len(),
-                mean: s.mean,
-                sd: s.sd,
-                min: values.iter().copied().fold(f64::INFINITY, f64::min),
-                max: values.iter().copied().fold(f64::NEG_INFINITY, f64::max),
-            }
-        })
-        .collect()
 }
 
 /// How much more optimistic the random folds were than the spatial ones.
@@ -555,31 +516,7 @@ impl Summary {
         for (note, units) in &run.notes {
             let _ = writeln!(out, "  {units} held-out predictions: {note}");
         }
-        if !run.coefficients.is_empty() {
-            let _ = writeln!(
-                out,
-                "  coefficients across folds (mean ± SD, range; per unit of each feature):"
-            );
-            for term in run.coefficients.iter().take(20) {
-                let _ = writeln!(
-                    out,
-                    "    {:<24} {} ± {}  [{} … {}]  ({} folds)",
-                    term.term,
-                    number(term.mean),
-                    number(term.sd),
-                    number(term.min),
-                    number(term.max),
-                    term.folds
-                );
-            }
-            if run.coefficients.len() > 20 {
-                let _ = writeln!(
-                    out,
-                    "    and {} more terms (table coefficients, or --json)",
-                    run.coefficients.len() - 20
-                );
-            }
-        }
+        terms::write_terms(out, &run.coefficients);
         if let Some(r2) = run.pooled.get("r2") {
             if r2 < 0.0 {
                 let _ = writeln!(

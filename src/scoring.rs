@@ -37,10 +37,10 @@ use crate::core::folds::{build_scheme, FoldSet, Region};
 use crate::core::metrics::Family;
 use crate::core::models::design::UnseenPolicy;
 use crate::core::options::Options;
-use crate::core::units::{Dataset, UnitCollector};
+use crate::core::units::Dataset;
 use crate::core::validate::{score_predictions, Predicted};
 use crate::error::{Error, Location};
-use crate::pipeline::open_source;
+use crate::pipeline::{open_source, read_units};
 use crate::report::Summary;
 use crate::results::rows::{FinishedRun, RunRecord, Stage};
 use crate::spec::{Limits, ResultsRef, RunSpec, SourceRef};
@@ -135,18 +135,8 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
     let run_spec = source_spec(&run, spec)?;
     let mut source = open_source(&run_spec)?;
     let info = source.info().clone();
-    let mut collector = UnitCollector::new(
-        &info.table,
-        &info.target_column,
-        &info.feature_columns,
-        run_spec.strict,
-    )
-    .with_group(info.group_column.as_deref())
-    .with_exposure(info.exposure_column.as_deref())
-    .with_text_features(&info.text_features);
-    source.read(&mut collector)?;
+    let data = read_units(source.as_mut(), &info, run_spec.strict)?;
     drop(source);
-    let data = collector.finish(&info.id_column)?;
     let fingerprint = data.fingerprint();
     if run.input_fingerprint.as_deref() != Some(fingerprint.as_str()) {
         return Err(Error::input(
@@ -264,12 +254,7 @@ fn source_spec(run: &AssignedRun, spec: &ScoreSpec) -> Result<RunSpec, Error> {
 /// The fold sets of every repetition from the recorded `held_out` rows,
 /// exclusions and regions (regions kept for repetition 1, for the maps).
 fn recorded_folds(run: &AssignedRun, data: &Dataset) -> Result<Vec<FoldSet>, Error> {
-    let index: HashMap<String, usize> = data
-        .ids
-        .iter()
-        .enumerate()
-        .map(|(i, id)| (id.to_string(), i))
-        .collect();
+    let index = id_index(data);
     let repeats = run.repeats.max(1) as usize;
     let k = u32::try_from(run.folds).unwrap_or(0);
     let broken = |what: String| Error::Store {
@@ -334,6 +319,15 @@ fn recorded_folds(run: &AssignedRun, data: &Dataset) -> Result<Vec<FoldSet>, Err
     Ok(sets)
 }
 
+/// Each unit's position by its id as text (how results tables store ids).
+fn id_index(data: &Dataset) -> HashMap<String, usize> {
+    data.ids
+        .iter()
+        .enumerate()
+        .map(|(i, id)| (id.to_string(), i))
+        .collect()
+}
+
 /// At most this many problems of a predictions table are listed.
 const MAX_PROBLEMS: usize = 1000;
 
@@ -349,12 +343,7 @@ pub fn check_predictions(
     family: Family,
     rows: &[PredictionRow],
 ) -> Result<Vec<Vec<f64>>, Error> {
-    let index: HashMap<String, usize> = data
-        .ids
-        .iter()
-        .enumerate()
-        .map(|(i, id)| (id.to_string(), i))
-        .collect();
+    let index = id_index(data);
     let repeats = sets.len();
     let mut predicted = vec![vec![f64::NAN; data.len()]; repeats];
     let mut seen = vec![vec![false; data.len()]; repeats];

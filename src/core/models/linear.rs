@@ -462,12 +462,23 @@ impl Fitted for LinearFit {
 /// Fits a triangle of the columns `[1, x'_used, y']` into a fitted model.
 pub type Solver<'s> = dyn Fn(&Triangle, &[usize]) -> Result<Box<dyn Fitted>, FitError> + Sync + 's;
 
-/// The least-squares solver of [`fit_folds`] (the `ols` family).
-pub fn least_squares(data: &Dataset, standardise: Arc<Standardise>) -> Box<Solver<'static>> {
+/// The standardised coefficients of `[1, x'_used]` from a triangle of
+/// `[1, x'_used, y']`, given the used columns and their names: [`solve`]
+/// (least squares) or the ridge solution.
+pub type Coefficients = dyn Fn(&Triangle, &Standardise, &[usize], &[String]) -> Result<Vec<f64>, FitError>
+    + Send
+    + Sync;
+
+/// The solver of [`fit_folds`] that turns `coefficients` into a [`LinearFit`].
+pub fn solver<'s>(
+    data: &Dataset,
+    standardise: Arc<Standardise>,
+    coefficients: &'s Coefficients,
+) -> Box<Solver<'s>> {
     let features = Arc::new(data.feature_names.clone());
     Box::new(move |triangle: &Triangle, used: &[usize]| {
         let names: Vec<String> = used.iter().map(|&c| features[c].clone()).collect();
-        let beta = solve(triangle, &standardise, used, &names)?;
+        let beta = coefficients(triangle, &standardise, used, &names)?;
         Ok(Box::new(LinearFit::new(
             standardise.clone(),
             features.clone(),
@@ -475,6 +486,32 @@ pub fn least_squares(data: &Dataset, standardise: Arc<Standardise>) -> Box<Solve
             used,
         )) as Box<dyn Fitted>)
     })
+}
+
+/// Fits the training `rows` with `coefficients` (the per-fold route).
+///
+/// # Errors
+/// As `coefficients`, and a text feature with one level in training.
+pub fn fit_training(
+    data: &Dataset,
+    rows: &[u32],
+    coefficients: &Coefficients,
+) -> Result<Box<dyn Fitted>, FitError> {
+    let standardise = Arc::new(Standardise::of(data));
+    let used = super::design::columns_of_rows(data, rows)?;
+    let triangle = Triangle::of_units(data, &standardise, rows.iter().copied());
+    solver(data, standardise, coefficients)(&triangle.select(&used), &used)
+}
+
+/// Fits every fold with `coefficients` (see [`fit_folds`]).
+pub fn fit_every_fold(
+    data: &Dataset,
+    folds: &FoldSet,
+    coefficients: &Coefficients,
+) -> Vec<Result<Box<dyn Fitted>, FitError>> {
+    let standardise = Arc::new(Standardise::of(data));
+    let solver = solver(data, standardise.clone(), coefficients);
+    fit_folds(data, folds, &standardise, solver.as_ref())
 }
 
 /// The feature columns of every fold ([`super::design`]): all of them
@@ -487,21 +524,6 @@ fn fold_columns(data: &Dataset, folds: &FoldSet) -> Vec<Result<Vec<usize>, FitEr
         .iter()
         .map(|counts| used_columns(data, counts))
         .collect()
-}
-
-/// Fits one training set directly: its triangle, its columns, the solver.
-///
-/// # Errors
-/// As the solver, and a text feature with one level in training.
-pub fn fit_rows(
-    data: &Dataset,
-    standardise: &Standardise,
-    rows: &[u32],
-    solver: &Solver<'_>,
-) -> Result<Box<dyn Fitted>, FitError> {
-    let used = super::design::columns_of_rows(data, rows)?;
-    let triangle = Triangle::of_units(data, standardise, rows.iter().copied());
-    solver(&triangle.select(&used), &used)
 }
 
 /// Fits the training set of every fold (see the module doc) with `solver`,

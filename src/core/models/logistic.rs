@@ -12,9 +12,8 @@
 
 use serde::{Deserialize, Serialize};
 
-use super::glm::{self, Link, DEFAULT_MAX_ITERATIONS};
-use super::{design, model_params, FitError, Fitted, Model, ModelEntry, TrainingSet};
-use crate::core::metrics::Family;
+use super::glm::{GlmModel, Link, DEFAULT_MAX_ITERATIONS};
+use super::{model_params, Model, ModelEntry};
 use crate::core::options::Options;
 use crate::error::Error;
 
@@ -52,51 +51,8 @@ impl GlmParams {
 
 fn build(options: &Options) -> Result<Box<dyn Model>, Error> {
     let params: GlmParams = model_params("logistic", ENTRY.options, options)?;
-    Ok(Box::new(Logistic {
+    Ok(Box::new(GlmModel {
+        link: Link::Logit,
         max_iterations: params.cap("logistic")?,
     }))
-}
-
-/// The logistic family.
-pub struct Logistic {
-    /// IRLS iteration cap.
-    pub max_iterations: u32,
-}
-
-impl Model for Logistic {
-    fn name(&self) -> &'static str {
-        "logistic"
-    }
-
-    fn family(&self) -> Family {
-        Family::Binary
-    }
-
-    fn parameters(&self) -> serde_json::Value {
-        serde_json::json!({
-            "link": "logit",
-            "max_iterations": self.max_iterations,
-            "convergence": "Newton decrement <= 1e-12 (|deviance| + 0.1)",
-        })
-    }
-
-    fn describe(&self) -> String {
-        "logistic regression with intercept (IRLS)".to_string()
-    }
-
-    fn min_training_units(&self, n_features: usize) -> usize {
-        n_features + 1
-    }
-
-    fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError> {
-        let used = design::columns_of_rows(training.data, training.rows)?;
-        let fit = glm::fit(
-            Link::Logit,
-            training.data,
-            training.rows,
-            &used,
-            self.max_iterations,
-        )?;
-        Ok(Box::new(fit))
-    }
 }

@@ -17,12 +17,10 @@
 //! # Complexity
 //! O(n p²) time and O(n p) memory for n units and p coefficients.
 
-use std::sync::Arc;
-
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
-use super::linear::{self, Standardise};
+use super::linear;
 use super::{model_params, FitError, Fitted, Model, ModelEntry, TrainingSet};
 use crate::core::folds::FoldSet;
 use crate::core::metrics::Family;
@@ -86,10 +84,7 @@ impl Model for Ols {
     }
 
     fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError> {
-        let data = training.data;
-        let standardise = Arc::new(Standardise::of(data));
-        let solver = linear::least_squares(data, standardise.clone());
-        linear::fit_rows(data, &standardise, training.rows, solver.as_ref())
+        linear::fit_training(training.data, training.rows, &linear::solve)
     }
 
     fn fit_folds(
@@ -97,14 +92,7 @@ impl Model for Ols {
         data: &Dataset,
         folds: &FoldSet,
     ) -> Option<Vec<Result<Box<dyn Fitted>, FitError>>> {
-        let standardise = Arc::new(Standardise::of(data));
-        let solver = linear::least_squares(data, standardise.clone());
-        Some(linear::fit_folds(
-            data,
-            folds,
-            &standardise,
-            solver.as_ref(),
-        ))
+        Some(linear::fit_every_fold(data, folds, &linear::solve))
     }
 }
 

@@ -11,10 +11,9 @@
 //! (reported as separation of the zero counts), or that does not converge
 //! within `--max-iterations` is an error naming the fold.
 
-use super::glm::{self, Link};
+use super::glm::{GlmModel, Link};
 use super::logistic::GlmParams;
-use super::{design, model_params, FitError, Fitted, Model, ModelEntry, TrainingSet};
-use crate::core::metrics::Family;
+use super::{model_params, Model, ModelEntry};
 use crate::core::options::Options;
 use crate::error::Error;
 
@@ -28,52 +27,8 @@ pub const ENTRY: ModelEntry = ModelEntry {
 
 fn build(options: &Options) -> Result<Box<dyn Model>, Error> {
     let params: GlmParams = model_params("poisson", ENTRY.options, options)?;
-    Ok(Box::new(Poisson {
+    Ok(Box::new(GlmModel {
+        link: Link::Log,
         max_iterations: params.cap("poisson")?,
     }))
-}
-
-/// The Poisson family.
-pub struct Poisson {
-    /// IRLS iteration cap.
-    pub max_iterations: u32,
-}
-
-impl Model for Poisson {
-    fn name(&self) -> &'static str {
-        "poisson"
-    }
-
-    fn family(&self) -> Family {
-        Family::Count
-    }
-
-    fn parameters(&self) -> serde_json::Value {
-        serde_json::json!({
-            "link": "log",
-            "offset": "log(exposure) when an exposure column is given",
-            "max_iterations": self.max_iterations,
-            "convergence": "Newton decrement <= 1e-12 (|deviance| + 0.1)",
-        })
-    }
-
-    fn describe(&self) -> String {
-        "Poisson regression with intercept, log link (IRLS)".to_string()
-    }
-
-    fn min_training_units(&self, n_features: usize) -> usize {
-        n_features + 1
-    }
-
-    fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError> {
-        let used = design::columns_of_rows(training.data, training.rows)?;
-        let fit = glm::fit(
-            Link::Log,
-            training.data,
-            training.rows,
-            &used,
-            self.max_iterations,
-        )?;
-        Ok(Box::new(fit))
-    }
 }

@@ -29,12 +29,10 @@
 //! # Complexity
 //! As [`linear`], plus O(p³) per fold.
 
-use std::sync::Arc;
-
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
-use super::linear::{self, LinearFit, Solver, Standardise, Triangle};
+use super::linear::{self, Standardise, Triangle};
 use super::{model_params, FitError, Fitted, Model, ModelEntry, TrainingSet};
 use crate::core::folds::FoldSet;
 use crate::core::metrics::Family;
@@ -92,19 +90,15 @@ impl Ridge {
         Ok(Ridge { penalty })
     }
 
-    fn solver(&self, data: &Dataset, standardise: Arc<Standardise>) -> Box<Solver<'static>> {
-        let features = Arc::new(data.feature_names.clone());
+    /// The coefficients of this penalty (see [`solve`]).
+    fn coefficients(
+        &self,
+    ) -> impl Fn(&Triangle, &Standardise, &[usize], &[String]) -> Result<Vec<f64>, FitError> + Send + Sync
+    {
         let penalty = self.penalty;
-        Box::new(move |triangle: &Triangle, used: &[usize]| {
-            let names: Vec<String> = used.iter().map(|&c| features[c].clone()).collect();
-            let beta = solve(triangle, &standardise, used, &names, penalty)?;
-            Ok(Box::new(LinearFit::new(
-                standardise.clone(),
-                features.clone(),
-                &beta,
-                used,
-            )) as Box<dyn Fitted>)
-        })
+        move |triangle: &Triangle, standardise: &Standardise, used: &[usize], names: &[String]| {
+            solve(triangle, standardise, used, names, penalty)
+        }
     }
 }
 
@@ -139,10 +133,7 @@ impl Model for Ridge {
     }
 
     fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError> {
-        let data = training.data;
-        let standardise = Arc::new(Standardise::of(data));
-        let solver = self.solver(data, standardise.clone());
-        linear::fit_rows(data, &standardise, training.rows, solver.as_ref())
+        linear::fit_training(training.data, training.rows, &self.coefficients())
     }
 
     fn fit_folds(
@@ -150,19 +141,12 @@ impl Model for Ridge {
         data: &Dataset,
         folds: &FoldSet,
     ) -> Option<Vec<Result<Box<dyn Fitted>, FitError>>> {
-        let standardise = Arc::new(Standardise::of(data));
-        let solver = self.solver(data, standardise.clone());
-        Some(linear::fit_folds(
-            data,
-            folds,
-            &standardise,
-            solver.as_ref(),
-        ))
+        Some(linear::fit_every_fold(data, folds, &self.coefficients()))
     }
 }
 
 /// The ridge coefficients of `[1, x'_used]` (the parametrisation of
-/// [`LinearFit`]) from a training triangle of `[1, x'_used, y']`.
+/// [`linear::LinearFit`]) from a training triangle of `[1, x'_used, y']`.
 ///
 /// # Errors
 /// Fewer than 2 units; a feature constant on the training units; with

@@ -83,9 +83,7 @@ fn refit(data: &Dataset, folds: &FoldSet, fold: u32) -> Vec<f64> {
 
 /// Every fold fitted by least squares through [`fit_folds`].
 fn ols_folds(data: &Dataset, folds: &FoldSet) -> Vec<Result<Box<dyn Fitted>, FitError>> {
-    let standardise = Arc::new(Standardise::of(data));
-    let solver = least_squares(data, standardise.clone());
-    fit_folds(data, folds, &standardise, solver.as_ref())
+    fit_every_fold(data, folds, &solve)
 }
 
 fn relative_error(a: &[f64], b: &[f64]) -> f64 {
