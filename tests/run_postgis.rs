@@ -865,11 +865,19 @@ fn missing_table_schema_or_column_exit_66() {
 
 #[test]
 fn non_numeric_feature_exits_65_naming_table_and_column() {
+    // A text feature is categorical (tests/models_input.rs); a date is neither.
     let case = Case::new("textfeature");
     create_units(&case, "units", IdType::Integer);
-    let stderr = run_fails(&case, &grid("{s}.units", "a,label", "200", "3"), 65);
-    assert!(stderr.contains(&case.fill("{s}.units.label")), "{stderr}");
-    assert!(stderr.contains("numeric"), "{stderr}");
+    case.script("ALTER TABLE {s}.units ADD COLUMN surveyed date DEFAULT '2020-01-01';");
+    let stderr = run_fails(&case, &grid("{s}.units", "a,surveyed", "200", "3"), 65);
+    assert!(
+        stderr.contains(&case.fill("{s}.units.surveyed")),
+        "{stderr}"
+    );
+    assert!(
+        stderr.contains("numeric, or text for a categorical feature"),
+        "{stderr}"
+    );
 }
 
 #[test]
