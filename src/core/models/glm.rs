@@ -220,6 +220,7 @@ impl Design {
 
 /// Copies and standardises the training rows' used columns.
 fn build_design(
+    link: Link,
     data: &Dataset,
     rows: &[u32],
     used: &[usize],
@@ -265,10 +266,10 @@ fn build_design(
         .iter()
         .map(|&v| if v > 0.0 { v * v.ln() } else { 0.0 })
         .collect();
-    let offset = data
-        .exposure
-        .as_ref()
-        .map(|e| rows.iter().map(|&u| e[u as usize].ln()).collect());
+    let offset = match (link, &data.exposure) {
+        (Link::Log, Some(e)) => Some(rows.iter().map(|&u| e[u as usize].ln()).collect()),
+        _ => None,
+    };
     Ok(Design {
         n,
         q,
@@ -411,7 +412,7 @@ pub fn fit(
         .iter()
         .map(|&c| data.feature_names[c].clone())
         .collect();
-    let design = build_design(data, rows, used, &names)?;
+    let design = build_design(link, data, rows, used, &names)?;
     let p = design.q + 1;
     if design.n < p {
         return Err(FitError::TooFewUnits {
