@@ -381,13 +381,18 @@ fn bad_columns_and_duplicate_ids_exit_65_naming_table_column_and_row() {
         "CREATE TABLE {s}.dupes AS SELECT * FROM {s}.units;
          INSERT INTO {s}.dupes SELECT id, target + 1, a, b, c, label, geom FROM {s}.units WHERE id = 7;",
     );
-    let text_feature = grid("{s}.units", "a,label", "200", "3");
+    // A text feature is categorical (tests/models_input.rs); a date is neither.
+    scratch.script("ALTER TABLE {s}.units ADD COLUMN surveyed date DEFAULT '2020-01-01';");
+    let date_feature = grid("{s}.units", "a,surveyed", "200", "3");
     refused(
         &scratch,
         &workdir,
-        &text_feature,
+        &date_feature,
         65,
-        &["{s}.units.label", "numeric"],
+        &[
+            "{s}.units.surveyed",
+            "numeric, or text for a categorical feature",
+        ],
     );
     let dupes = grid("{s}.dupes", "a,b", "200", "3");
     refused(

@@ -49,6 +49,7 @@ mod read;
 mod rows;
 mod rtree;
 pub mod schema;
+pub mod scoring;
 mod store;
 pub mod tables;
 

@@ -19,6 +19,7 @@ pub mod layers;
 pub mod migrate;
 pub mod read;
 pub mod reads;
+pub mod scoring;
 pub mod store;
 pub mod tls;
 
