@@ -106,6 +106,7 @@ fn demo_with_no_arguments_writes_a_geopackage_gdal_opens() {
     .into_iter()
     .chain(
         [
+            "coefficients",
             "inspections",
             "diagnostics",
             "semivariogram",
