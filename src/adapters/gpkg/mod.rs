@@ -87,8 +87,8 @@ pub fn sqlite_error(path: &Path, action: &str, error: &rusqlite::Error) -> Error
     let (kind, what) = match error.sqlite_error_code() {
         Some(ErrorCode::DatabaseBusy | ErrorCode::DatabaseLocked) => (
             FileProblem::Locked,
-            "the file is locked by another program (geofold waited --lock-timeout); nothing was written; \
-             try again when it is free"
+            "the file is locked by another program (geofold waited --lock-timeout for a results file, \
+             5 s for a source); nothing was written; try again when it is free"
                 .to_string(),
         ),
         Some(ErrorCode::NotADatabase) => (
