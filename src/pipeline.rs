@@ -22,16 +22,17 @@ use crate::adapters::gpkg::{GpkgSource, GpkgStore};
 use crate::adapters::postgis::read::PostgisSource;
 use crate::adapters::postgis::store::PostgisStore;
 use crate::adapters::postgis::Session;
-use crate::adapters::{default_job, CrsKind, ResultStore, Source, SourceInfo};
+use crate::adapters::{default_job, CrsKind, Locations, ResultStore, Source, SourceInfo};
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
+use crate::core::matching::{prediction_distances, Matching};
 use crate::core::neighbours::NeighbourIndex;
 use crate::core::units::{Dataset, UnitCollector};
-use crate::core::validate::{assign_folds, fit_and_score, Plan, RunOutcome};
+use crate::core::validate::{assign_folds, check_training, fit_and_score, Plan, RunOutcome};
 use crate::error::Error;
 use crate::report::Summary;
 use crate::results::rows::{FinishedRun, RunRecord};
-use crate::spec::{ResultsRef, RunSpec, SourceRef};
+use crate::spec::{PredictionRef, ResultsRef, RunSpec, SourceRef};
 
 /// Opens the source a specification names.
 ///
@@ -91,7 +92,7 @@ pub fn job_of(spec: &RunSpec, info: &SourceInfo) -> String {
 /// Refuses a scheme that needs distances on a CRS in degrees or without
 /// units, saying how to fix the data.
 fn check_crs(spec: &RunSpec, info: &mut SourceInfo, scheme: &dyn FoldScheme) -> Result<(), Error> {
-    if !(scheme.needs_distances() || spec.exclusion_radius.is_some()) {
+    if !(scheme.needs_distances() || spec.exclusion_radius.is_some() || spec.prediction.is_some()) {
         return Ok(());
     }
     let what = format!("{}.{}", info.table, info.geom_column);
@@ -168,10 +169,19 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
         spec.strict,
     )
     .with_group(info.group_column.as_deref())
-    .with_exposure(info.exposure_column.as_deref());
+    .with_exposure(info.exposure_column.as_deref())
+    .with_geometries(checked.scheme.requirements().geometries);
     source.read(&mut collector)?;
+    let locations: Option<Locations> = match &spec.prediction {
+        Some(PredictionRef::Postgis { table, geom }) => {
+            Some(source.read_locations(table, geom.as_deref(), spec.distance_srid)?)
+        }
+        Some(PredictionRef::Gpkg { layer }) => Some(source.read_locations(layer, None, None)?),
+        None => None,
+    };
     drop(source);
-    let data = collector.finish(&info.id_column)?;
+    let mut data = collector.finish(&info.id_column)?;
+    let geometries = data.geometries.take();
     if data.is_empty() {
         let reasons = data.skipped.describe();
         return Err(Error::input(
@@ -201,7 +211,9 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
         points: &data.points,
         index: &index,
         groups: data.groups.as_ref(),
-        prediction_points: None,
+        prediction_points: locations.as_ref().map(|l| l.points.as_slice()),
+        geometries: geometries.as_deref(),
+        exclusion_radius: spec.exclusion_radius,
     };
     let random = Random::new(
         checked
@@ -231,6 +243,13 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
             exclusion_radius: spec.exclusion_radius,
         };
         let folds = assign_folds(&input, &plan)?;
+        check_training(
+            &folds,
+            data.len(),
+            checked.model.min_training_units(data.n_features()),
+            &checked.model.describe(),
+            spec.exclusion_radius,
+        )?;
         let record = RunRecord {
             run_id: Uuid::new_v4(),
             job: job.clone(),
@@ -257,25 +276,52 @@ pub fn run(spec: &RunSpec) -> Result<Summary, Error> {
         });
     }
 
+    drop(geometries);
+    let prediction = locations
+        .as_ref()
+        .map(|l| prediction_distances(&l.points, &index));
     store.prepare(&info)?;
     let records: Vec<RunRecord> = planned.iter().map(|p| p.record.clone()).collect();
     store.begin(&info, &records)?;
-    let result = fit_and_write(spec, &checked, &info, &data, planned, store.as_mut());
+    let context = Context {
+        spec,
+        checked: &checked,
+        info: &info,
+        data: &data,
+        locations: locations.as_ref(),
+        prediction: prediction.as_deref(),
+    };
+    let result = fit_and_write(&context, planned, store.as_mut());
     if let Err(error) = &result {
         store.fail(&records, &error.to_string());
     }
     result
 }
 
+/// What step 6 works from.
+struct Context<'a> {
+    spec: &'a RunSpec,
+    checked: &'a crate::spec::Checked,
+    info: &'a SourceInfo,
+    data: &'a Dataset,
+    locations: Option<&'a Locations>,
+    /// Prediction distances (each location to its nearest unit).
+    prediction: Option<&'a [f64]>,
+}
+
 /// Step 6 of the module doc.
 fn fit_and_write(
-    spec: &RunSpec,
-    checked: &crate::spec::Checked,
-    info: &SourceInfo,
-    data: &Dataset,
+    context: &Context<'_>,
     planned: Vec<Planned<'_>>,
     store: &mut dyn ResultStore,
 ) -> Result<Summary, Error> {
+    let Context {
+        spec,
+        checked,
+        info,
+        data,
+        ..
+    } = *context;
     let clock = std::time::Instant::now();
     let mut records = Vec::new();
     let mut outcomes: Vec<RunOutcome> = Vec::new();
@@ -293,7 +339,16 @@ fn fit_and_write(
             seed: spec.seed,
             exclusion_radius: spec.exclusion_radius,
         };
-        outcomes.push(fit_and_score(data, &plan, folds)?);
+        let mut outcome = fit_and_score(data, &plan, folds)?;
+        if let Some(prediction) = context.prediction {
+            let cv: Vec<&[f64]> = outcome
+                .repetitions
+                .iter()
+                .filter_map(|r| r.folds.cv_distances.as_deref())
+                .collect();
+            outcome.matching = Some(Matching::new(prediction.to_vec(), &cv));
+        }
+        outcomes.push(outcome);
         descriptions.push(scheme.describe(&|value| info.length(value)));
         records.push(record);
     }
@@ -309,7 +364,7 @@ fn fit_and_write(
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "wrote results"
     );
-    Ok(Summary::new(
+    let mut summary = Summary::new(
         info,
         data,
         &records,
@@ -318,5 +373,7 @@ fn fit_and_write(
         &checked.model.describe(),
         spec.exclusion_radius,
         report,
-    ))
+    );
+    summary.prediction_locations = context.locations.cloned();
+    Ok(summary)
 }

@@ -184,6 +184,9 @@ pub struct Dataset {
     pub groups: Option<Groups>,
     /// Each unit's exposure (e.g. a population at risk), when an exposure column was read.
     pub exposure: Option<Vec<f64>>,
+    /// Each unit's geometry (distance CRS), kept only when the fold scheme
+    /// draws from it (see [`UnitCollector::with_geometries`]).
+    pub geometries: Option<Vec<Geometry<f64>>>,
 }
 
 /// The group of each unit (e.g. a district code), as codes into sorted names.
@@ -304,9 +307,18 @@ pub struct UnitCollector {
     exposure_column: Option<String>,
     groups: Vec<String>,
     exposure: Vec<f64>,
+    keep_geometries: bool,
+    geometries: Vec<Geometry<f64>>,
 }
 
 impl UnitCollector {
+    /// Also keeps each used row's geometry (for schemes that draw regions
+    /// from the units' shapes; costs the geometries' size in memory).
+    pub fn with_geometries(mut self, keep: bool) -> UnitCollector {
+        self.keep_geometries = keep;
+        self
+    }
+
     /// Also collects a group column (a row whose group is NULL is skipped).
     pub fn with_group(mut self, column: Option<&str>) -> UnitCollector {
         self.group_column = column.map(str::to_string);
@@ -344,6 +356,8 @@ impl UnitCollector {
             exposure_column: None,
             groups: Vec::new(),
             exposure: Vec::new(),
+            keep_geometries: false,
+            geometries: Vec::new(),
         }
     }
 
@@ -464,6 +478,9 @@ impl UnitCollector {
             | Geometry::Triangle(_) => self.geometry_kinds.polygons = true,
             _ => self.geometry_kinds.other = true,
         }
+        if self.keep_geometries {
+            self.geometries.push(geometry);
+        }
         self.rows.push((id, point, target));
         self.features
             .extend(features.iter().map(|value| value.unwrap_or(f64::NAN)));
@@ -551,6 +568,14 @@ impl UnitCollector {
         let exposure = self
             .exposure_column
             .map(|_| order.iter().map(|&index| self.exposure[index]).collect());
+        let geometries = self.keep_geometries.then(|| {
+            let mut kept: Vec<Option<Geometry<f64>>> =
+                self.geometries.into_iter().map(Some).collect();
+            order
+                .iter()
+                .filter_map(|&index| kept.get_mut(index).and_then(Option::take))
+                .collect()
+        });
         Ok(Dataset {
             ids,
             points,
@@ -563,6 +588,7 @@ impl UnitCollector {
             skipped: self.skipped,
             groups,
             exposure,
+            geometries,
         })
     }
 }

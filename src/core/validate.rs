@@ -19,6 +19,7 @@
 use serde::Serialize;
 
 use crate::core::folds::{exclude_within, FoldRng, FoldScheme, FoldSet, SchemeInput};
+use crate::core::matching::{cv_distances, Matching};
 use crate::core::metrics::{spreads, Family, Scores, Spread};
 use crate::core::models::{FitError, Fitted, Model, TrainingSet};
 use crate::core::parallel::parallel_map;
@@ -85,6 +86,9 @@ pub struct RunOutcome {
     pub repeat_spread: Option<Vec<(&'static str, Spread)>>,
     /// Pooled scores of the training-mean baseline on the same folds.
     pub baseline: Scores,
+    /// Distance matching against the prediction locations, when the run has
+    /// them (set by the caller, who holds the locations).
+    pub matching: Option<Matching>,
 }
 
 /// Checks a number of repetitions.
@@ -102,7 +106,9 @@ pub fn check_repeats(repeats: u32) -> Result<(), Error> {
 
 /// The folds of every repetition, with the exclusion buffer applied. A
 /// scheme that draws nothing at random gives the same folds every time, so it
-/// is assigned once and repeated.
+/// is assigned once and repeated. When the input has prediction locations,
+/// each fold set's CV distances ([`FoldSet::cv_distances`]) are filled after
+/// the buffer.
 ///
 /// # Errors
 /// [`Error::Folds`] (or [`Error::Usage`]) when the scheme cannot split the units.
@@ -121,9 +127,58 @@ pub fn assign_folds(input: &SchemeInput<'_>, plan: &Plan<'_>) -> Result<Vec<Fold
         if let Some(radius) = plan.exclusion_radius {
             exclude_within(&mut set, input, radius);
         }
+        if input.prediction_points.is_some() {
+            set.cv_distances = Some(cv_distances(&set, input.points, input.index));
+        }
         sets.push(set);
     }
     Ok(sets)
+}
+
+/// Checks, before anything is recorded, that every fold of every repetition
+/// keeps at least `needed` training units (what the model needs with the
+/// data's features), so a radius or a matching that leaves too few stops the
+/// run with nothing written.
+///
+/// # Errors
+/// [`Error::Folds`] naming the first such fold (lowest repetition, then fold),
+/// its numbers and what to change.
+pub fn check_training(
+    sets: &[FoldSet],
+    units: usize,
+    needed: usize,
+    model: &str,
+    exclusion_radius: Option<f64>,
+) -> Result<(), Error> {
+    for (repetition, set) in sets.iter().enumerate() {
+        let sizes = set.fold_sizes();
+        for (fold, &test) in sizes.iter().enumerate() {
+            let excluded = set.excluded_from(fold as u32).len();
+            let training = units.saturating_sub(test + excluded);
+            if training >= needed {
+                continue;
+            }
+            let change = if excluded > 0 {
+                match exclusion_radius {
+                    Some(radius) => format!(
+                        "the exclusion radius {radius} leaves too few: use a smaller --exclusion-radius"
+                    ),
+                    None => "the scheme's exclusions leave too few: raise --min-training-share or use a smaller \
+                             --match-range"
+                        .to_string(),
+                }
+            } else {
+                "use fewer --folds, more units, or fewer features".to_string()
+            };
+            return Err(Error::Folds(format!(
+                "fold {} of repetition {} keeps {training} training units ({units} units, {test} tested, {excluded} \
+                 excluded), fewer than the {needed} that {model} needs; {change}",
+                fold + 1,
+                repetition + 1
+            )));
+        }
+    }
+    Ok(())
 }
 
 /// Fits every fold of every repetition and scores the held-out predictions.
@@ -205,6 +260,7 @@ pub fn fit_and_score(
         fold_spread,
         repeat_spread,
         baseline: family.score(&baseline_pairs),
+        matching: None,
     })
 }
 
@@ -371,6 +427,8 @@ mod tests {
             block_size: 5.0,
             grid_origin: [0.0, 0.0],
             folds: 4,
+            block_shape: Default::default(),
+            deal: Default::default(),
         })
         .unwrap();
         let outcome = run(&data, &grid, 1, 3).unwrap();

@@ -43,6 +43,7 @@
 pub mod blob;
 pub(crate) mod container;
 pub mod import;
+pub mod locations;
 mod read;
 mod rows;
 mod rtree;

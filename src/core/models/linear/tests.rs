@@ -25,6 +25,7 @@ fn dataset(features: &[Vec<f64>], target: &[f64], points: &[[f64; 2]]) -> Datase
         skipped: Skipped::default(),
         groups: None,
         exposure: None,
+        geometries: None,
     }
 }
 
