@@ -15,12 +15,16 @@
 //!   what `scipy.stats.wasserstein_distance(a, b)` computes for 1-D samples.
 //!
 //! # How the CV distances are found
-//! Through the neighbour index of all units, nearest first, skipping units
-//! of the test fold and excluded ones. With at most [`SKIP_BUDGET_FOLDS`]
-//! folds, a unit that skips [`SKIP_BUDGET`] units (deep inside a large
-//! spatial fold) is answered instead from one index per fold, visiting the
-//! other folds by the distance to their bounding boxes. Both give the same
-//! distance; the budget only bounds the work.
+//! All ways give the same distances; they differ only in work.
+//! - With at most [`COMPLEMENT_FOLDS`] folds and at least
+//!   [`COMPLEMENT_UNITS`] units, from an index of each fold's complement,
+//!   built one fold at a time.
+//! - Otherwise through the neighbour index of all units, nearest first,
+//!   skipping units of the test fold and excluded ones. With at most
+//!   [`SKIP_BUDGET_FOLDS`] folds, a unit that skips [`SKIP_BUDGET`] units
+//!   (deep inside a large spatial fold) is answered instead from one index
+//!   per fold, visiting the other folds by the distance to their bounding
+//!   boxes.
 
 use std::sync::OnceLock;
 
@@ -36,6 +40,13 @@ pub const SKIP_BUDGET: usize = 64;
 /// Up to this many folds the fold-by-fold lookup is used; beyond, folds are
 /// small (leave-one-out and its kin) and skipping is cheap.
 pub const SKIP_BUDGET_FOLDS: usize = 64;
+
+/// Up to this many folds, and from [`COMPLEMENT_UNITS`] units, every unit's
+/// CV distance comes from an index of its fold's complement.
+pub const COMPLEMENT_FOLDS: usize = 16;
+
+/// See [`COMPLEMENT_FOLDS`].
+pub const COMPLEMENT_UNITS: usize = 50_000;
 
 /// Units per work item when distances are computed on several cores.
 const CHUNK: usize = 4096;
@@ -137,8 +148,41 @@ pub fn loo_distances(points: &[[f64; 2]], index: &NeighbourIndex) -> Vec<f64> {
 /// The CV distance of every unit (module doc); NaN for a unit whose fold
 /// has no training unit.
 pub fn cv_distances(set: &FoldSet, points: &[[f64; 2]], index: &NeighbourIndex) -> Vec<f64> {
+    if (set.k as usize) <= COMPLEMENT_FOLDS && points.len() >= COMPLEMENT_UNITS {
+        return by_complement(set, points);
+    }
     let all: Vec<u32> = (0..points.len() as u32).collect();
     cv_distances_of(set, points, index, &all)
+}
+
+/// Every unit's CV distance from an index of each fold's complement (the
+/// units of the other folds), built one fold at a time: k indexes of about
+/// n units each, one query per unit, whatever the shape of the folds.
+fn by_complement(set: &FoldSet, points: &[[f64; 2]]) -> Vec<f64> {
+    let mut distances = vec![f64::NAN; points.len()];
+    for (fold, members) in set.test_units().into_iter().enumerate() {
+        let others: Vec<u32> = (0..points.len() as u32)
+            .filter(|&j| set.fold_of[j as usize] as usize != fold)
+            .collect();
+        let located: Vec<[f64; 2]> = others.iter().map(|&j| points[j as usize]).collect();
+        let tree = NeighbourIndex::new(&located);
+        let excluded = set.excluded_from(fold as u32);
+        let found = chunked(members.len(), |position| {
+            let at = points[members[position] as usize];
+            tree.nearest_distance_within(
+                at,
+                |local| excluded.binary_search(&others[local as usize]).is_err(),
+                usize::MAX,
+            )
+            .ok()
+            .flatten()
+            .unwrap_or(f64::NAN)
+        });
+        for (&unit, d) in members.iter().zip(found) {
+            distances[unit as usize] = d;
+        }
+    }
+    distances
 }
 
 /// The CV distances of the listed units only, in the order listed.
@@ -333,9 +377,12 @@ mod tests {
             };
             assert_eq!(d[i], expected, "unit {i}");
         }
+        // The complement indexes give the same distances.
+        assert_eq!(by_complement(&set, &points), d);
         // Excluding column 30 from fold 0's training set adds one spacing.
         set.excluded = vec![(0..3600u32).filter(|&i| i % 60 == 30).collect(), vec![]];
         let d = cv_distances(&set, &points, &index);
+        assert_eq!(by_complement(&set, &points), d);
         assert_eq!(d[0], 31.0);
         assert_eq!(d[29], 2.0);
         assert_eq!(d[30], 1.0);

@@ -128,7 +128,12 @@ pub fn assign_folds(input: &SchemeInput<'_>, plan: &Plan<'_>) -> Result<Vec<Fold
             exclude_within(&mut set, input, radius);
         }
         if input.prediction_points.is_some() {
+            let clock = std::time::Instant::now();
             set.cv_distances = Some(cv_distances(&set, input.points, input.index));
+            tracing::debug!(
+                elapsed_ms = clock.elapsed().as_millis() as u64,
+                "test-to-training nearest distances"
+            );
         }
         sets.push(set);
     }

@@ -198,6 +198,7 @@ impl FoldScheme for Knndm {
             }
         };
         for q in candidate_counts(k, n) {
+            let clock = std::time::Instant::now();
             let clustering = match kmeans(
                 input.points,
                 input.index,
@@ -218,7 +219,14 @@ impl FoldScheme for Knndm {
                 .iter()
                 .map(|&c| fold_of_cluster[c as usize])
                 .collect();
+            let clustered_ms = clock.elapsed().as_millis() as u64;
             consider(Some(q), fold_of);
+            tracing::debug!(
+                clusters = q,
+                clustered_ms,
+                total_ms = clock.elapsed().as_millis() as u64,
+                "kNNDM candidate"
+            );
         }
         let mut order: Vec<usize> = (0..n).collect();
         rng.shuffle(&mut order);

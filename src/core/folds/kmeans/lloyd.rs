@@ -22,7 +22,8 @@
 //!   then each runs its iterations (which draw nothing).
 //! - **Lloyd iteration.** Every unit goes to its nearest centre (squared
 //!   Euclidean distance; ties to the lowest cluster number); each centre
-//!   moves to the mean of its units (summed in id order). A cluster left
+//!   moves to the mean of its units (summed in id order within blocks of
+//!   8192 units, the blocks' sums added in order). A cluster left
 //!   empty takes as its new centre the unit farthest from its own centre
 //!   (ties to the lowest id; several empty clusters take the farthest units
 //!   in turn). Iterations stop when no unit changes cluster, or after
@@ -30,13 +31,18 @@
 //! - **Best start.** The smallest within-cluster sum of squares (squared
 //!   distances of units to the mean of their cluster), ties to the earliest.
 //!
+//! Units that provably keep their cluster are not compared with every centre
+//! again ([`super::hamerly`]); the assignments are those of plain Lloyd.
+//!
 //! # Complexity
-//! Seeding O(n·q) at worst (O(n log n) typically: after the first centres a
-//! new centre only visits the units within reach of it, found through the
-//! neighbour index); each iteration O(n·q) with q ≤ 32 clusters, O(n log q)
-//! with more (the centres in an R-tree). Work is spread over the cores;
-//! results do not depend on their number.
+//! Seeding O(n·q) at worst (less typically: after the first centres a new
+//! centre only visits the units within reach of it, found through the
+//! neighbour index); each iteration O(n) for the bounds plus O(q) or O(log q)
+//! (more than 512 clusters: the centres in an R-tree) for each unit compared
+//! in full. Work is spread over the cores; results do not depend on their
+//! number.
 
+use super::hamerly::{cluster_means, Iterations};
 use crate::core::folds::FoldRng;
 use crate::core::neighbours::NeighbourIndex;
 use crate::core::parallel::parallel_map;
@@ -111,13 +117,26 @@ pub fn kmeans(
             points.len()
         )));
     }
+    let clock = std::time::Instant::now();
     let mut seeds = Vec::with_capacity(settings.starts.max(1));
     for _ in 0..settings.starts.max(1) {
         seeds.push(seed(points, index, q, rng)?);
     }
+    tracing::debug!(
+        clusters = q,
+        elapsed_ms = clock.elapsed().as_millis() as u64,
+        "k-means++ seeding"
+    );
     let mut best: Option<Clustering> = None;
     for (start, centres) in seeds.into_iter().enumerate() {
+        let clock = std::time::Instant::now();
         let run = lloyd(points, centres, settings.max_iterations, start);
+        tracing::debug!(
+            clusters = q,
+            iterations = run.iterations,
+            elapsed_ms = clock.elapsed().as_millis() as u64,
+            "Lloyd iterations"
+        );
         if best.as_ref().is_none_or(|b| run.wcss < b.wcss) {
             best = Some(run);
         }
@@ -179,7 +198,8 @@ fn seed(
     Ok(centres)
 }
 
-/// Lloyd iterations from `centres` (module rules).
+/// Lloyd iterations from `centres` (module rules), skipping the units that
+/// provably keep their cluster ([`super::hamerly`]).
 fn lloyd(
     points: &[[f64; 2]],
     mut centres: Vec<[f64; 2]>,
@@ -187,19 +207,20 @@ fn lloyd(
     start: usize,
 ) -> Clustering {
     let q = centres.len();
-    let mut cluster_of = nearest_centres(points, &centres);
+    let mut state = Iterations::new(points, &centres);
     let mut iterations = 0;
     let mut converged = false;
     while iterations < max_iterations {
         iterations += 1;
-        centres = means(points, &cluster_of, &centres);
-        let next = nearest_centres(points, &centres);
-        if next == cluster_of {
+        let next = means(points, state.cluster_of(), &centres);
+        let changed = state.step(points, &centres, &next);
+        centres = next;
+        if !changed {
             converged = true;
             break;
         }
-        cluster_of = next;
     }
+    let cluster_of = state.cluster_of().to_vec();
     let centres = means(points, &cluster_of, &centres);
     let wcss = points
         .iter()
@@ -235,7 +256,8 @@ pub fn nearest_centres(points: &[[f64; 2]], centres: &[[f64; 2]]) -> Vec<u32> {
     .collect()
 }
 
-fn brute_nearest(p: [f64; 2], centres: &[[f64; 2]]) -> u32 {
+/// The nearest centre by comparing all, ties to the lowest number.
+pub fn brute_nearest(p: [f64; 2], centres: &[[f64; 2]]) -> u32 {
     let mut best = 0;
     let mut best_d = f64::INFINITY;
     for (c, &centre) in centres.iter().enumerate() {
@@ -248,27 +270,17 @@ fn brute_nearest(p: [f64; 2], centres: &[[f64; 2]]) -> u32 {
     best as u32
 }
 
-/// The mean of each cluster's units; empty clusters get the farthest units.
-fn means(points: &[[f64; 2]], cluster_of: &[u32], old: &[[f64; 2]]) -> Vec<[f64; 2]> {
+/// The mean of each cluster's units ([`cluster_means`]); empty clusters get
+/// the farthest units.
+pub(super) fn means(points: &[[f64; 2]], cluster_of: &[u32], old: &[[f64; 2]]) -> Vec<[f64; 2]> {
     let q = old.len();
-    let mut sums = vec![[0.0f64; 2]; q];
-    let mut counts = vec![0usize; q];
-    for (&p, &c) in points.iter().zip(cluster_of) {
-        let c = c as usize;
-        sums[c][0] += p[0];
-        sums[c][1] += p[1];
-        counts[c] += 1;
-    }
-    let mut centres: Vec<[f64; 2]> = (0..q)
-        .map(|c| {
-            if counts[c] > 0 {
-                [sums[c][0] / counts[c] as f64, sums[c][1] / counts[c] as f64]
-            } else {
-                old[c]
-            }
-        })
+    let found = cluster_means(points, cluster_of, q);
+    let mut centres: Vec<[f64; 2]> = found
+        .iter()
+        .zip(old)
+        .map(|(mean, &previous)| mean.unwrap_or(previous))
         .collect();
-    let empty: Vec<usize> = (0..q).filter(|&c| counts[c] == 0).collect();
+    let empty: Vec<usize> = (0..q).filter(|&c| found[c].is_none()).collect();
     if !empty.is_empty() {
         let mut far: Vec<(f64, usize)> = points
             .iter()

@@ -32,6 +32,7 @@
 //!
 //! Distances are Euclidean in the distance CRS: a projected CRS is required.
 
+pub mod hamerly;
 pub mod lloyd;
 
 use serde::{Deserialize, Serialize};

@@ -197,3 +197,49 @@ fn too_few_distinct_locations_is_an_error() {
     assert_eq!(tree.find(2.0), 3);
     assert_eq!(tree.find(4.999), 3);
 }
+
+/// Plain Lloyd, the reference for the bounded iterations: every unit
+/// compared with every centre in every iteration.
+fn plain(points: &[[f64; 2]], mut centres: Vec<[f64; 2]>, max_iterations: u32) -> (Vec<u32>, u32) {
+    let mut cluster_of = nearest_centres(points, &centres);
+    let mut iterations = 0;
+    while iterations < max_iterations {
+        iterations += 1;
+        centres = means(points, &cluster_of, &centres);
+        let next = nearest_centres(points, &centres);
+        if next == cluster_of {
+            break;
+        }
+        cluster_of = next;
+    }
+    (cluster_of, iterations)
+}
+
+#[test]
+fn bounded_iterations_give_plain_lloyds_assignments() {
+    // Uniform, clustered and lattice points (exact ties), few and many
+    // clusters (the centre index above 512).
+    let lattice: Vec<[f64; 2]> = (0..4900)
+        .map(|i| [(i % 70) as f64, (i / 70) as f64])
+        .collect();
+    let clustered = crate::core::testing::clustered_points(3, 40, 100, 25.0);
+    for (name, points) in [
+        ("uniform", scattered(6000, 11)),
+        ("clustered", clustered),
+        ("lattice", lattice),
+    ] {
+        let index = NeighbourIndex::new(&points);
+        let many: &[usize] = if name == "uniform" {
+            &[3, 17, 90, 600]
+        } else {
+            &[3, 17, 90]
+        };
+        for &q in many {
+            let seeds = seed(&points, &index, q, &mut FoldRng::new(q as u64, 0)).unwrap();
+            let bounded = lloyd(&points, seeds.clone(), 300, 0);
+            let (expected, iterations) = plain(&points, seeds, 300);
+            assert_eq!(bounded.cluster_of, expected, "{name} q={q}");
+            assert_eq!(bounded.iterations, iterations, "{name} q={q}");
+        }
+    }
+}
