@@ -176,7 +176,7 @@ impl Iterations {
     }
 }
 
-/// The mean of each cluster's units: sums over blocks of [`CHUNK`] units in
+/// The mean of each cluster's units: sums over blocks of 8192 units in
 /// id order, the blocks' sums then added in block order (the same on any
 /// number of threads). A cluster without units keeps `None`.
 pub fn cluster_means(points: &[[f64; 2]], cluster_of: &[u32], q: usize) -> Vec<Option<[f64; 2]>> {
