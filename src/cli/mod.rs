@@ -14,8 +14,12 @@ EXIT STATUS
   2   busy: another run of the same job is running (see --wait); nothing was done
   64  usage: bad options or arguments
   65  bad input data: duplicate ids, a row skipped under --strict, an unfittable fold,
-      a geometry column mixing SRIDs, a results store geofold did not make
-  66  the source table, schema, column, file or layer does not exist
+      a geometry column mixing SRIDs, a results store geofold did not make; folds that
+      cannot be built (a block larger than the study area, fewer blocks, clusters or groups
+      than folds, a radius or matching leaving too few training units), prediction
+      locations in another SRID, a group column that is not integer or text
+  66  the source table, schema, column, file or layer, or the prediction table or layer,
+      does not exist
   69  the database server is unreachable, or PostGIS is not installed
   70  internal error (a bug: please report it)
   73  the output file or table cannot be created
