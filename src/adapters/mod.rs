@@ -159,6 +159,8 @@ pub struct Locations {
     /// order the rows came (nothing depends on that order).
     #[serde(skip)]
     pub points: Vec<[f64; 2]>,
+    /// How many were read (the number of points).
+    pub count: usize,
     /// Rows with a NULL or empty geometry, skipped.
     pub skipped: u64,
 }

@@ -122,6 +122,7 @@ pub fn read(path: &Path, source: &SourceInfo, layer: &str) -> Result<Locations, 
         ));
     }
     Ok(Locations {
+        count: points.len(),
         table: display,
         points,
         skipped,

@@ -191,6 +191,7 @@ pub fn read(
         ));
     }
     Ok(Locations {
+        count: points.len(),
         table: where_,
         points,
         skipped,

@@ -37,7 +37,8 @@
 //! below `⌈min-training-share · (n − 1)⌉` units (and at least 1) keeps its
 //! exclusions and is skipped from then on (geofold's rule; default share 0.5).
 //! It stops when no `r ≤ φ` violates the inequality or no unit can be
-//! changed; a violation left is reported as a warning.
+//! changed; a violation left is reported as a warning. More than
+//! [`MAX_EXCLUSIONS`] exclusions in all stop the run (use kNNDM).
 //!
 //! Exclusions only lengthen distances, so once `Ĝ*_j(r) ≤ Ĝ_ij(r)` holds at
 //! some `r` it holds for good: one pass over the units in order of `d*`
@@ -70,6 +71,11 @@ pub const ENTRY: SchemeEntry = SchemeEntry {
     options: &["match-range", "min-training-share"],
     build,
 };
+
+/// Most exclusions NNDM records in all: beyond, matching leave-one-out at
+/// this size is not practical (the exclusions grow with n² when the
+/// prediction locations lie far from the data) and the run is refused.
+pub const MAX_EXCLUSIONS: usize = 100_000_000;
 
 /// Options of NNDM.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -205,6 +211,7 @@ impl FoldScheme for Nndm {
         let mut before = 0usize;
         let mut lower: Bound<(u64, u32)> = Bound::Unbounded;
         let mut violation_left = false;
+        let mut total = 0usize;
         while let Some(&(bits, _)) = order.range((lower, Bound::Unbounded)).next() {
             let d = f64::from_bits(bits);
             if d > range {
@@ -230,8 +237,17 @@ impl FoldScheme for Nndm {
                     requested: 0,
                     excluded: 0,
                 });
+                let before_advance = cursor.excluded;
                 match advance(input.index, input.points, unit, cursor, most_excluded) {
                     Some(next) => {
+                        total += cursor.excluded - before_advance;
+                        if total > MAX_EXCLUSIONS {
+                            return Err(Error::Folds(format!(
+                                "NNDM would exclude more than {MAX_EXCLUSIONS} training units in all ({n} units): the \
+                                 prediction locations lie far from the data; use --scheme knndm, a smaller --match-range \
+                                 or a larger --min-training-share"
+                            )));
+                        }
                         order.remove(&(bits, unit));
                         order.insert((next.to_bits(), unit));
                         group -= 1;
@@ -267,9 +283,7 @@ impl FoldScheme for Nndm {
             });
             excluded[unit] = units;
         }
-        let counts: Vec<usize> = excluded.iter().map(Vec::len).collect();
-        let with = counts.iter().filter(|&&c| c > 0).count();
-        let total: usize = counts.iter().sum();
+        let with = excluded.iter().filter(|units| !units.is_empty()).count();
         let stopped = frozen.iter().filter(|&&f| f).count();
         let mut set = FoldSet::plain(k, (0..k).collect());
         set.excluded = excluded;
