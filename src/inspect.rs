@@ -205,6 +205,7 @@ pub fn inspect(spec: &InspectSpec) -> Result<Inspection, Error> {
         &info,
         &job,
         spec.strict,
+        false,
         &crate::progress::Silent,
     )?;
     let rule = match &spec.weights {

@@ -14,8 +14,9 @@ use std::fmt::Write as _;
 
 use serde::Serialize;
 
-use crate::adapters::{SourceInfo, StoreReport};
+use crate::adapters::{Locations, SourceInfo, StoreReport};
 use crate::core::diagnostics::held_out::HeldOutMoran;
+use crate::core::matching::Matching;
 use crate::core::metrics::{score_def, Better, Scores, Spread, THRESHOLD};
 use crate::core::units::{Dataset, Skipped};
 use crate::core::validate::RunOutcome;
@@ -91,6 +92,12 @@ pub struct RunSummary {
     /// Held-out predictions made by a fallback rule or with all-zero
     /// indicators: `(what, units)`.
     pub notes: Vec<(String, usize)>,
+    /// Distance matching against the prediction locations: W (the
+    /// Wasserstein-1 distance between the test-to-training distances during
+    /// cross-validation and the prediction-location-to-data distances), per
+    /// repetition and over all, with both medians. None without prediction
+    /// locations.
+    pub matching: Option<Matching>,
 }
 
 /// How much more optimistic the random folds were than the spatial ones.
@@ -146,6 +153,8 @@ pub struct Summary {
     pub results: StoreReport,
     /// The drift gates, judged on the stored scores (empty without gates).
     pub gates: Vec<crate::gates::GateResult>,
+    /// The prediction locations read, when the run named them.
+    pub prediction_locations: Option<Locations>,
 }
 
 impl Summary {
@@ -208,6 +217,7 @@ impl Summary {
                         .collect(),
                     coefficients: term_spreads(outcome),
                     notes: outcome.notes.clone(),
+                    matching: outcome.matching.clone(),
                 }
             })
             .collect();
@@ -250,6 +260,7 @@ impl Summary {
             features_used: true,
             results,
             gates: Vec::new(),
+            prediction_locations: None,
         }
     }
 
@@ -300,6 +311,19 @@ impl Summary {
                 out,
                 "exclusion buffer: training units within {} of a test unit are left out of that fold's training",
                 source.length(radius)
+            );
+        }
+        if let Some(locations) = &self.prediction_locations {
+            let _ = writeln!(
+                out,
+                "prediction locations: {} from {}{}",
+                locations.points.len(),
+                locations.table,
+                if locations.skipped > 0 {
+                    format!(" ({} skipped: NULL or empty geometry)", locations.skipped)
+                } else {
+                    String::new()
+                }
             );
         }
         if self.units_skipped > 0 {
@@ -425,6 +449,36 @@ impl Summary {
                 "  {blocks} occupied blocks; units per block: median {}, range {}–{}",
                 per["median"], per["min"], per["max"]
             );
+        }
+        split_text(out, &run.split);
+        if let Some(matching) = &run.matching {
+            let _ = writeln!(
+                out,
+                "  distance matching: W = {} (Wasserstein-1 distance between the test-to-training distances during \
+                 cross-validation, median {}, and the distances from the prediction locations to the data, median \
+                 {}; 0 is a perfect match, in CRS units)",
+                number(matching.w),
+                self.source.length(matching.cv_median),
+                self.source.length(matching.prediction_median)
+            );
+            if matching.w_per_repetition.len() > 1 {
+                let n = matching.w_per_repetition.len() as f64;
+                let mean = matching.w_per_repetition.iter().sum::<f64>() / n;
+                let sd = (matching
+                    .w_per_repetition
+                    .iter()
+                    .map(|w| (w - mean).powi(2))
+                    .sum::<f64>()
+                    / (n - 1.0))
+                    .sqrt();
+                let _ = writeln!(
+                    out,
+                    "  W over the {} repetitions (mean ± SD): {} ± {}",
+                    matching.w_per_repetition.len(),
+                    number(mean),
+                    number(sd)
+                );
+            }
         }
         for warning in &run.warnings {
             let _ = writeln!(out, "  warning: {warning}");
@@ -568,6 +622,50 @@ impl Summary {
                 );
             }
         }
+    }
+}
+
+/// The facts of the split that the text summary names, scheme by scheme
+/// (block counts are printed by the caller).
+fn split_text(out: &mut String, split: &serde_json::Map<String, serde_json::Value>) {
+    for (count, per, what) in [
+        (
+            "clusters",
+            "units_per_cluster",
+            "clusters; units per cluster",
+        ),
+        ("groups", "units_per_group", "groups; units per group"),
+    ] {
+        if let (Some(count), Some(per)) = (split.get(count), split.get(per)) {
+            let _ = writeln!(
+                out,
+                "  {count} {what}: median {}, range {}–{}",
+                per["median"], per["min"], per["max"]
+            );
+        }
+    }
+    if let Some(chosen) = split.get("chosen_clusters") {
+        let tried = split
+            .get("candidates")
+            .and_then(|c| c.as_array())
+            .map_or(0, Vec::len);
+        let chosen = match chosen.as_u64() {
+            Some(q) => format!("{q} k-means clusters dealt to the folds"),
+            None => "random folds".to_string(),
+        };
+        let _ = writeln!(
+            out,
+            "  kNNDM chose {chosen} among {tried} candidates, judged on {} units",
+            split.get("evaluation_units").cloned().unwrap_or_default()
+        );
+    }
+    if let (Some(with), Some(total)) = (split.get("units_with_exclusions"), split.get("exclusions"))
+    {
+        let _ = writeln!(
+            out,
+            "  NNDM excluded {total} training units in all from the folds of {with} units (matched: {})",
+            split.get("matched").cloned().unwrap_or_default()
+        );
     }
 }
 

@@ -147,6 +147,22 @@ pub trait Source {
     /// # Errors
     /// Geometries that are not polygons; database or file errors.
     fn contiguity(&mut self, data: &Dataset, rule: Contiguity) -> Result<Vec<(u32, u32)>, Error>;
+    /// Reads the prediction locations `table` (a PostGIS table in the
+    /// source's database, or a layer of the source GeoPackage) with its
+    /// geometry column `geom` (None: its only one), as representative points
+    /// in the distance CRS. Their SRID must be the source's, unless
+    /// `distance_srid` transforms both.
+    ///
+    /// # Errors
+    /// [`Error::NotFound`] (or a missing-file error) for a missing table,
+    /// layer or column (exit 66); [`Error::Input`] for another SRID, a
+    /// geometry that cannot be decoded, or no usable location (exit 65).
+    fn read_locations(
+        &mut self,
+        table: &str,
+        geom: Option<&str>,
+        distance_srid: Option<i32>,
+    ) -> Result<Locations, Error>;
 }
 
 /// Turns pairs of source ids into sorted, unique pairs of dataset indices,
@@ -166,6 +182,21 @@ pub fn index_pairs(
     found.sort_unstable();
     found.dedup();
     found
+}
+
+/// Prediction locations as read.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Locations {
+    /// Where they came from: `schema.table.geom` or `file.gpkg:layer`.
+    pub table: String,
+    /// Each usable row's representative point, in the distance CRS, in the
+    /// order the rows came (nothing depends on that order).
+    #[serde(skip)]
+    pub points: Vec<[f64; 2]>,
+    /// How many were read (the number of points).
+    pub count: usize,
+    /// Rows with a NULL or empty geometry, skipped.
+    pub skipped: u64,
 }
 
 /// A map layer a store made for a job.

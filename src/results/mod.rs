@@ -357,7 +357,11 @@ pub const FOLD_REGIONS: TableDef = TableDef {
         col("run_id", RunId, "the run"),
         col("repetition", Int, "repetition, from 1"),
         col("fold", Int, "fold, from 1"),
-        col("kind", Text, "what the region is: block, …"),
+        col(
+            "kind",
+            Text,
+            "what the region is: block, hexagon, cluster, group, group hull, disc or fold",
+        ),
         col("label", Text, "a label unique within the repetition"),
         col("units", Int, "units inside it"),
         col("srid", Int, "SRID of the geometry (the run's distance SRID)"),
@@ -376,6 +380,30 @@ pub const FOLD_EXCLUSIONS: TableDef = TableDef {
         col("repetition", Int, "repetition, from 1"),
         col("fold", Int, "fold, from 1"),
         col("unit_id", Text, "the excluded unit's source id, as text"),
+    ],
+};
+
+/// Nearest-neighbour distances of runs with prediction locations.
+pub const NEAREST_DISTANCES: TableDef = TableDef {
+    name: "nearest_distances",
+    about: "geofold: nearest-neighbour distances of runs given prediction locations: kind cv, each unit to the nearest unit of its fold's training set in each repetition; kind prediction, each prediction location to the nearest unit (once per run); the run score w_nnd is the Wasserstein-1 distance between the two",
+    keying: Keying::PerUnit,
+    belongs_to_run: false,
+    columns: &[
+        col("run_id", RunId, "the run"),
+        opt(
+            "repetition",
+            Int,
+            "repetition, from 1 (cv rows); NULL for prediction rows, which do not depend on it",
+        ),
+        col("kind", Text, "cv or prediction"),
+        opt("fold", Int, "the unit's test fold, from 1 (cv rows); NULL for prediction rows"),
+        opt("unit_id", Text, "the unit's source id, as text (cv rows); NULL for prediction rows"),
+        opt(
+            "distance",
+            Float,
+            "the distance in CRS units (the run's distance SRID); NULL when a fold has no training unit",
+        ),
     ],
 };
 
@@ -538,6 +566,7 @@ pub const TABLES: &[&TableDef] = &[
     &COEFFICIENTS,
     &FOLD_REGIONS,
     &FOLD_EXCLUSIONS,
+    &NEAREST_DISTANCES,
     &JOBS,
     &INSPECTIONS,
     &DIAGNOSTICS,

@@ -45,6 +45,7 @@ pub mod blob;
 pub(crate) mod container;
 mod history;
 pub mod import;
+pub mod locations;
 mod read;
 mod rows;
 mod rtree;
