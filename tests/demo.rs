@@ -107,6 +107,7 @@ fn demo_with_no_arguments_writes_a_geopackage_gdal_opens() {
     .chain(
         [
             "coefficients",
+            "nearest_distances",
             "inspections",
             "diagnostics",
             "semivariogram",
