@@ -44,6 +44,7 @@ use crate::adapters::ColumnSpec;
 use crate::adapters::{
     default_job, CrsKind, Locations, ResultStore, Source, SourceInfo, StoredInspection,
 };
+use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
 use crate::core::diagnostics::held_out::HeldOutWeights;
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
@@ -595,6 +596,7 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
         data: &data,
         locations: locations.as_ref(),
         prediction: prediction.as_deref(),
+        index: &index,
         progress,
     };
     let result = fit_and_write(&context, planned, store.as_mut());
@@ -683,6 +685,8 @@ struct Context<'a> {
     locations: Option<&'a Locations>,
     /// Prediction distances (each location to its nearest unit).
     prediction: Option<&'a [f64]>,
+    /// The neighbour index of the units.
+    index: &'a NeighbourIndex,
     progress: &'a dyn Progress,
 }
 
@@ -756,6 +760,17 @@ fn fit_and_write(
     let clock = std::time::Instant::now();
     if !spec.assign_only {
         attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
+    }
+    for outcome in &mut outcomes {
+        if let Some(first) = outcome.repetitions.first() {
+            outcome.fold_distances =
+                fold_distances(&first.folds, &data.points, context.index, spec.seed);
+        }
+        outcome.fold_distances.extend(
+            context
+                .prediction
+                .and_then(|p| summarise("prediction", None, p, None)),
+        );
     }
     tracing::info!(
         phase = "diagnostics",

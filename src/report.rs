@@ -15,6 +15,7 @@ use std::fmt::Write as _;
 use serde::Serialize;
 
 use crate::adapters::{Locations, SourceInfo, StoreReport};
+use crate::core::diagnostics::fold_distances::DistanceSummary;
 use crate::core::diagnostics::held_out::HeldOutMoran;
 use crate::core::matching::Matching;
 use crate::core::metrics::{score_def, Better, Scores, Spread, THRESHOLD};
@@ -85,6 +86,9 @@ pub struct RunSummary {
     pub baseline: Scores,
     /// Moran's I of the held-out residuals, when it could be computed.
     pub held_out_moran: Option<HeldOutMoran>,
+    /// Test-to-training nearest distances (repetition 1), pooled then per
+    /// fold, and the prediction distances when the run has locations.
+    pub fold_distances: Vec<DistanceSummary>,
     /// Per fold and repetition.
     pub folds: Vec<FoldSummary>,
     /// Each fitted term's spread over all folds of all repetitions.
@@ -197,6 +201,7 @@ impl Summary {
                     repeat_spread: outcome.repeat_spread.clone(),
                     baseline: outcome.baseline.clone(),
                     held_out_moran: outcome.held_out_moran.clone(),
+                    fold_distances: outcome.fold_distances.clone(),
                     folds: outcome
                         .repetitions
                         .iter()
@@ -590,6 +595,7 @@ impl Summary {
                 spread.join("  ")
             );
         }
+        self.distances_text(out, run);
         if let Some(held) = &run.held_out_moran {
             let m = &held.moran;
             let _ = writeln!(
@@ -724,5 +730,55 @@ fn p_value(p: f64) -> String {
         "< 0.0001".into()
     } else {
         format!("{p:.4}")
+    }
+}
+
+impl Summary {
+    /// The nearest-distance lines of a run: how far test units were from
+    /// their training units, and the prediction locations from the data.
+    fn distances_text(&self, out: &mut String, run: &RunSummary) {
+        let length = |v: f64| self.source.length(v);
+        let pooled = run
+            .fold_distances
+            .iter()
+            .find(|d| d.kind == "cv" && d.fold.is_none());
+        let Some(pooled) = pooled else {
+            return;
+        };
+        let medians: Vec<f64> = run
+            .fold_distances
+            .iter()
+            .filter(|d| d.kind == "cv" && d.fold.is_some())
+            .map(DistanceSummary::median)
+            .collect();
+        let per_fold = match (
+            medians.iter().copied().reduce(f64::min),
+            medians.iter().copied().reduce(f64::max),
+        ) {
+            (Some(low), Some(high)) if medians.len() > 1 => {
+                format!("; fold medians {} to {}", length(low), length(high))
+            }
+            _ => String::new(),
+        };
+        let _ = writeln!(
+            out,
+            "  test units to their nearest training unit: median {} (10th–90th percentile {} to {}){per_fold}{}",
+            length(pooled.median()),
+            length(pooled.quantiles[1]),
+            length(pooled.quantiles[5]),
+            pooled
+                .sampled_from
+                .map(|total| format!(", from a seeded sample of {} of {total} units", pooled.n))
+                .unwrap_or_default()
+        );
+        if let Some(prediction) = run.fold_distances.iter().find(|d| d.kind == "prediction") {
+            let _ = writeln!(
+                out,
+                "  prediction locations to the nearest unit: median {} (10th–90th percentile {} to {})",
+                length(prediction.median()),
+                length(prediction.quantiles[1]),
+                length(prediction.quantiles[5]),
+            );
+        }
     }
 }

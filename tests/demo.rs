@@ -108,6 +108,7 @@ fn demo_with_no_arguments_writes_a_geopackage_gdal_opens() {
         [
             "coefficients",
             "nearest_distances",
+            "fold_distances",
             "inspections",
             "diagnostics",
             "semivariogram",

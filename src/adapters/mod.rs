@@ -115,9 +115,20 @@ impl SourceInfo {
 
 /// A length in a CRS unit, in words (metres become m or km).
 pub fn describe_length(value: f64, unit: Option<&str>) -> String {
+    // Four significant digits (at most three decimals), trailing zeros dropped.
     let plain = |v: f64| {
-        let text = format!("{v:.3}");
-        text.trim_end_matches('0').trim_end_matches('.').to_string()
+        let magnitude = if v == 0.0 {
+            0
+        } else {
+            v.abs().log10().floor() as i32
+        };
+        let decimals = (3 - magnitude).clamp(0, 3) as usize;
+        let text = format!("{v:.decimals$}");
+        if text.contains('.') {
+            text.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            text
+        }
     };
     let metres =
         unit.is_some_and(|u| ["metre", "meter", "m"].contains(&u.to_ascii_lowercase().as_str()));
@@ -634,6 +645,9 @@ mod tests {
     fn lengths_are_described_in_the_crs_unit() {
         assert_eq!(describe_length(4000.0, Some("metre")), "4 km");
         assert_eq!(describe_length(800.0, Some("metre")), "800 m");
+        assert_eq!(describe_length(903.094, Some("metre")), "903.1 m");
+        assert_eq!(describe_length(208_152.0, Some("metre")), "208.2 km");
+        assert_eq!(describe_length(1045.0, Some("metre")), "1.045 km");
         assert_eq!(describe_length(2.5, None), "2.5 CRS units");
         assert_eq!(
             describe_length(300.0, Some("US survey foot")),

@@ -28,6 +28,7 @@
 
 use serde::Serialize;
 
+use crate::core::diagnostics::fold_distances::DistanceSummary;
 use crate::core::diagnostics::held_out::HeldOutMoran;
 use crate::core::folds::{exclude_within, FoldRng, FoldScheme, FoldSet, SchemeInput};
 use crate::core::matching::{cv_distances, Matching};
@@ -104,6 +105,9 @@ pub struct RunOutcome {
     /// Moran's I of the held-out residuals (set by the pipeline; None when
     /// it could not be computed, with a warning).
     pub held_out_moran: Option<HeldOutMoran>,
+    /// Test-to-training nearest distances of repetition 1, pooled then per
+    /// fold, and the prediction distances (set by the pipeline).
+    pub fold_distances: Vec<DistanceSummary>,
     /// Distance matching against the prediction locations, when the run has
     /// them (set by the caller, who holds the locations).
     pub matching: Option<Matching>,
@@ -350,6 +354,7 @@ pub fn score_predictions(data: &Dataset, family: Family, predicted: Vec<Predicte
         baseline: family.score(&baseline_pairs),
         notes: Vec::new(),
         held_out_moran: None,
+        fold_distances: Vec::new(),
         matching: None,
     }
 }
@@ -392,6 +397,7 @@ pub fn assigned(data: &Dataset, family: Family, sets: Vec<FoldSet>) -> RunOutcom
         baseline: empty,
         notes: Vec::new(),
         held_out_moran: None,
+        fold_distances: Vec::new(),
         matching: None,
     }
 }

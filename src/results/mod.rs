@@ -383,6 +383,29 @@ pub const FOLD_EXCLUSIONS: TableDef = TableDef {
     ],
 };
 
+/// Summaries of the test-to-training nearest distances of every run.
+pub const FOLD_DISTANCES: TableDef = TableDef {
+    name: "fold_distances",
+    about: "geofold: how far test units are from the nearest unit they were trained on, per fold and over all folds of repetition 1 (kind cv), and how far the prediction locations are from the data (kind prediction), as quantiles; samples beyond 5,000 units per fold and 20,000 over all say how many units they came from",
+    keying: Keying::Serial("distance_id"),
+    belongs_to_run: true,
+    columns: &[
+        col("run_id", RunId, "the run"),
+        col("kind", Text, "cv (test units to their nearest training unit) or prediction (prediction locations to the nearest unit)"),
+        opt("fold", Int, "the fold, from 1; NULL for all folds together and for prediction rows"),
+        col("n", BigInt, "distances summarised"),
+        opt("sampled_from", BigInt, "units a seeded sample was drawn from; NULL when every unit was measured"),
+        col("minimum", Float, "smallest distance (CRS units of the run's distance SRID)"),
+        col("p10", Float, "10th percentile (linear interpolation, numpy's default)"),
+        col("p25", Float, "25th percentile"),
+        col("median", Float, "median"),
+        col("p75", Float, "75th percentile"),
+        col("p90", Float, "90th percentile"),
+        col("maximum", Float, "largest distance"),
+        col("mean", Float, "mean distance"),
+    ],
+};
+
 /// Nearest-neighbour distances of runs with prediction locations.
 pub const NEAREST_DISTANCES: TableDef = TableDef {
     name: "nearest_distances",
@@ -567,6 +590,7 @@ pub const TABLES: &[&TableDef] = &[
     &FOLD_REGIONS,
     &FOLD_EXCLUSIONS,
     &NEAREST_DISTANCES,
+    &FOLD_DISTANCES,
     &JOBS,
     &INSPECTIONS,
     &DIAGNOSTICS,

@@ -7,9 +7,10 @@ use serde::Serialize;
 use uuid::Uuid;
 
 use super::{
-    TableDef, COEFFICIENTS, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES,
-    HELD_OUT, NEAREST_DISTANCES, RUN_SCORE_VALUES, UNIT_SUMMARIES,
+    TableDef, COEFFICIENTS, DIAGNOSTICS, FOLDS, FOLD_DISTANCES, FOLD_EXCLUSIONS, FOLD_REGIONS,
+    FOLD_SCORE_VALUES, HELD_OUT, NEAREST_DISTANCES, RUN_SCORE_VALUES, UNIT_SUMMARIES,
 };
+use crate::core::diagnostics::fold_distances::DistanceSummary;
 use crate::core::diagnostics::moran::{Inference, Moran};
 use crate::core::units::{Dataset, UnitId};
 use crate::core::validate::{unit_summary, RunOutcome};
@@ -171,6 +172,7 @@ impl Stage {
             FOLD_REGIONS.name,
             FOLD_EXCLUSIONS.name,
             NEAREST_DISTANCES.name,
+            FOLD_DISTANCES.name,
         ];
         let scores = [
             UNIT_SUMMARIES.name,
@@ -356,6 +358,21 @@ pub fn run_rows<'a>(
                     .collect()
             } else {
                 Vec::new()
+            },
+        }),
+        Box::new(Listed {
+            table: &FOLD_DISTANCES,
+            items: outcome.fold_distances.iter().collect(),
+            fill: move |d: &&DistanceSummary, out: &mut Vec<Value<'a>>| {
+                out.extend([
+                    Value::Uuid(run_id),
+                    Value::Str(d.kind),
+                    d.fold.map_or(Value::Null, |f| Value::Int(i64::from(f) + 1)),
+                    Value::Int(d.n as i64),
+                    d.sampled_from.map_or(Value::Null, |n| Value::Int(n as i64)),
+                ]);
+                out.extend(d.quantiles.iter().map(|&q| Value::Float(q)));
+                out.push(Value::Float(d.mean));
             },
         }),
         diagnostics_rows(
