@@ -489,13 +489,22 @@ impl Summary {
             let _ = writeln!(out, "  warning: {warning}");
         }
         let names: Vec<&'static str> = run.pooled.values.iter().map(|(name, _)| *name).collect();
+        // Folds of one unit each (leave-one-out): per-fold scores are single
+        // errors, so the table and the per-fold spread are left out.
+        let single_units = run.folds.iter().all(|f| f.n_test == 1);
         let shown: Vec<&FoldSummary> = run
             .folds
             .iter()
-            .filter(|f| f.repetition == 1)
+            .filter(|f| f.repetition == 1 && !single_units)
             .take(30)
             .collect();
-        if run.repeats > 1 || run.folds.len() > shown.len() {
+        if single_units {
+            let _ = writeln!(
+                out,
+                "  {} folds of one unit each: per-fold scores are single errors (table fold_scores); read the pooled scores",
+                run.folds.iter().filter(|f| f.repetition == 1).count()
+            );
+        } else if run.repeats > 1 || run.folds.len() > shown.len() {
             let _ = writeln!(
                 out,
                 "  folds of repetition 1{}:",
@@ -513,7 +522,9 @@ impl Summary {
         for name in &names {
             let _ = write!(header, " {:>10}", label(name));
         }
-        let _ = writeln!(out, "{header}");
+        if !single_units {
+            let _ = writeln!(out, "{header}");
+        }
         for fold in shown {
             let mut line = format!(
                 "  {:>5} {:>9} {:>8} {:>9}",
@@ -581,7 +592,9 @@ impl Summary {
             .filter(|(name, _)| *name != "bias")
             .map(|(name, s)| format!("{} {} ± {}", label(name), number(s.mean), number(s.sd)))
             .collect();
-        let _ = writeln!(out, "  per-fold mean ± SD: {}", spread.join("  "));
+        if !single_units {
+            let _ = writeln!(out, "  per-fold mean ± SD: {}", spread.join("  "));
+        }
         if let Some(repeats) = &run.repeat_spread {
             let spread: Vec<String> = repeats
                 .iter()
