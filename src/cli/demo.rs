@@ -77,9 +77,9 @@ impl DemoOutcome {
     pub fn to_text(&self) -> String {
         let mut out = String::new();
         out.push_str(&self.inspection.to_text());
-        out.push_str("\n");
+        out.push('\n');
         out.push_str(&self.blocks.to_text());
-        out.push_str("\n");
+        out.push('\n');
         out.push_str(&self.buffered.to_text());
         out.push_str("\nwhat this shows:\n");
         for sentence in &self.takeaway {
