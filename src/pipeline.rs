@@ -44,6 +44,7 @@ use crate::adapters::ColumnSpec;
 use crate::adapters::{
     default_job, CrsKind, Locations, ResultStore, Source, SourceInfo, StoredInspection,
 };
+use crate::core::cells::Cells;
 use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
 use crate::core::diagnostics::held_out::HeldOutWeights;
 use crate::core::folds::random::Random;
@@ -596,7 +597,6 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
         data: &data,
         locations: locations.as_ref(),
         prediction: prediction.as_deref(),
-        index: &index,
         progress,
     };
     let result = fit_and_write(&context, planned, store.as_mut());
@@ -685,8 +685,6 @@ struct Context<'a> {
     locations: Option<&'a Locations>,
     /// Prediction distances (each location to its nearest unit).
     prediction: Option<&'a [f64]>,
-    /// The neighbour index of the units.
-    index: &'a NeighbourIndex,
     progress: &'a dyn Progress,
 }
 
@@ -761,10 +759,16 @@ fn fit_and_write(
     if !spec.assign_only {
         attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
     }
+    tracing::info!(
+        phase = "diagnostics",
+        elapsed_ms = clock.elapsed().as_millis() as u64,
+        "held-out residual Moran's I"
+    );
+    let clock = std::time::Instant::now();
+    let cells = Cells::new(&data.points);
     for outcome in &mut outcomes {
         if let Some(first) = outcome.repetitions.first() {
-            outcome.fold_distances =
-                fold_distances(&first.folds, &data.points, context.index, spec.seed);
+            outcome.fold_distances = fold_distances(&first.folds, &data.points, &cells, spec.seed);
         }
         outcome.fold_distances.extend(
             context
@@ -775,7 +779,7 @@ fn fit_and_write(
     tracing::info!(
         phase = "diagnostics",
         elapsed_ms = clock.elapsed().as_millis() as u64,
-        "held-out residual Moran's I"
+        "test-to-training distances"
     );
     let clock = std::time::Instant::now();
     let finished: Vec<FinishedRun<'_>> = records

@@ -9,7 +9,7 @@
 //! excluded from it).
 //!
 //! # Scale
-//! Repetition 1 only. Per fold, up to [`PER_FOLD_UNITS`] test units, and over
+//! Repetition 1 only; nearest points through [`Cells`]. Per fold, up to [`PER_FOLD_UNITS`] test units, and over
 //! all folds up to [`POOLED_UNITS`] units, drawn without replacement from
 //! stream [`SAMPLE_STREAM`] of the run seed; the stored row says how many
 //! units the sample came from. With more than [`MAX_FOLD_ROWS`] folds
@@ -24,15 +24,15 @@
 use serde::Serialize;
 
 use super::draws::IndexStream;
+use crate::core::cells::Cells;
 use crate::core::folds::FoldSet;
-use crate::core::matching::cv_distances_of;
-use crate::core::neighbours::NeighbourIndex;
+use crate::core::parallel::parallel_map;
 
 /// Test units measured per fold at most.
-pub const PER_FOLD_UNITS: usize = 5_000;
+pub const PER_FOLD_UNITS: usize = 2_000;
 
 /// Units measured over all folds at most.
-pub const POOLED_UNITS: usize = 20_000;
+pub const POOLED_UNITS: usize = 10_000;
 
 /// Per-fold rows are kept up to this many folds.
 pub const MAX_FOLD_ROWS: u32 = 100;
@@ -122,7 +122,7 @@ fn sample(units: &[u32], limit: usize, stream: &mut IndexStream) -> Vec<u32> {
 pub fn fold_distances(
     set: &FoldSet,
     points: &[[f64; 2]],
-    index: &NeighbourIndex,
+    cells: &Cells,
     seed: u64,
 ) -> Vec<DistanceSummary> {
     let members = set.test_units();
@@ -154,7 +154,7 @@ pub fn fold_distances(
                 .collect();
             needed.sort_unstable();
             needed.dedup();
-            let found = cv_distances_of(set, points, index, &needed);
+            let found = cv_distances(set, points, cells, &needed);
             Box::new(move |u| {
                 needed
                     .binary_search(&u)
@@ -178,6 +178,29 @@ pub fn fold_distances(
         summaries.extend(summary(Some(fold as u32), units, members[fold].len()));
     }
     summaries
+}
+
+/// The CV distance of each listed unit (NaN when its fold has no training
+/// unit), on the machine's cores.
+fn cv_distances(set: &FoldSet, points: &[[f64; 2]], cells: &Cells, units: &[u32]) -> Vec<f64> {
+    const CHUNK: usize = 1024;
+    parallel_map(units.len().div_ceil(CHUNK), |chunk| {
+        units[chunk * CHUNK..((chunk + 1) * CHUNK).min(units.len())]
+            .iter()
+            .map(|&unit| {
+                let fold = set.fold_of[unit as usize];
+                let excluded = set.excluded_from(fold);
+                let keep =
+                    |j: u32| set.fold_of[j as usize] != fold && excluded.binary_search(&j).is_err();
+                cells
+                    .nearest_distance(points, points[unit as usize], keep)
+                    .unwrap_or(f64::NAN)
+            })
+            .collect::<Vec<f64>>()
+    })
+    .into_iter()
+    .flatten()
+    .collect()
 }
 
 #[cfg(test)]
@@ -206,8 +229,8 @@ mod tests {
         let points: Vec<[f64; 2]> = (0..20).map(|i| [i as f64, 0.0]).collect();
         let fold_of: Vec<u32> = (0..20).map(|i| u32::from(i >= 10)).collect();
         let set = FoldSet::plain(2, fold_of);
-        let index = NeighbourIndex::new(&points);
-        let rows = fold_distances(&set, &points, &index, 1);
+        let cells = Cells::new(&points);
+        let rows = fold_distances(&set, &points, &cells, 1);
         assert_eq!(rows.len(), 3);
         assert_eq!(rows[0].fold, None);
         assert_eq!(rows[1].fold, Some(0));
@@ -223,14 +246,14 @@ mod tests {
         let points: Vec<[f64; 2]> = (0..30_000).map(|i| [i as f64, 0.0]).collect();
         let fold_of: Vec<u32> = (0..30_000).map(|i| (i % 3) as u32).collect();
         let set = FoldSet::plain(3, fold_of);
-        let index = NeighbourIndex::new(&points);
-        let rows = fold_distances(&set, &points, &index, 7);
+        let cells = Cells::new(&points);
+        let rows = fold_distances(&set, &points, &cells, 7);
         assert_eq!(rows[0].n, POOLED_UNITS);
         assert_eq!(rows[0].sampled_from, Some(30_000));
         assert_eq!(rows[1].n, PER_FOLD_UNITS);
         assert_eq!(rows[1].sampled_from, Some(10_000));
         // Interleaved folds: every unit's neighbour one step away is training.
         assert_eq!(rows[0].quantiles[6], 1.0);
-        assert_eq!(rows, fold_distances(&set, &points, &index, 7));
+        assert_eq!(rows, fold_distances(&set, &points, &cells, 7));
     }
 }
