@@ -172,7 +172,7 @@ mod tests {
         for q in 0..300 {
             let at = [next() * 1100.0 - 50.0, next() * 500.0 - 50.0];
             let modulus = (q % 7 + 2) as u32;
-            let keep = |j: u32| j % modulus == 0;
+            let keep = |j: u32| j.is_multiple_of(modulus);
             assert_eq!(
                 cells.nearest_distance(&points, at, keep),
                 brute(&points, at, keep),
