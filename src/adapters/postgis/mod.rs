@@ -18,6 +18,7 @@ pub mod history;
 pub mod layers;
 pub mod migrate;
 pub mod read;
+pub mod readback;
 pub mod reads;
 pub mod store;
 pub mod tls;

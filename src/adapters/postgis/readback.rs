@@ -1,0 +1,128 @@
+//! [`ReadBack`] of a PostGIS results schema: rows of any results table by a
+//! key column, unit geometries from the source table a run recorded
+//! (transformed to the run's distance SRID in the database), and CRS facts
+//! from `spatial_ref_sys`.
+
+use geozero::ToGeo;
+
+use super::reads::{owned, read_expression};
+use super::store::PostgisStore;
+use super::{database_error, quote_ident, split_qualified};
+use crate::adapters::readback::{key_column, CrsFacts, GeometryOrigin, ReadBack, UnitSource};
+use crate::error::Error;
+use crate::results::rows::Owned;
+use crate::results::{ColumnType, Keying, TableDef};
+
+impl ReadBack for PostgisStore {
+    fn read_rows(
+        &mut self,
+        table: &TableDef,
+        key: &str,
+        values: &[String],
+        visit: &mut dyn FnMut(Vec<Owned>) -> Result<(), Error>,
+    ) -> Result<(), Error> {
+        let key_type = key_column(table, key)?.ty;
+        let columns: Vec<String> = table
+            .columns
+            .iter()
+            .map(|c| read_expression(c.name, c.ty))
+            .collect();
+        let order = match table.keying {
+            Keying::Serial(key) => format!(" ORDER BY {}", quote_ident(key)),
+            Keying::Primary(key) => format!(
+                " ORDER BY {}",
+                key.iter()
+                    .map(|k| quote_ident(k))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+            Keying::PerUnit => String::new(),
+        };
+        // The key compared in its own type, so its index serves the read.
+        let condition = match key_type {
+            ColumnType::RunId => format!("{} = ANY($1::text[]::uuid[])", quote_ident(key)),
+            ColumnType::Text => format!("{} = ANY($1::text[])", quote_ident(key)),
+            _ => format!("{}::text = ANY($1::text[])", quote_ident(key)),
+        };
+        let sql = format!(
+            "SELECT {} FROM {}.{} WHERE {condition}{order}",
+            columns.join(", "),
+            quote_ident(self.schema()),
+            quote_ident(table.name)
+        );
+        let action = format!("reading {}.{}", self.schema(), table.name);
+        self.stream(&sql, &[&values], &action, |row| {
+            let mut out = Vec::with_capacity(table.columns.len());
+            for (index, column) in table.columns.iter().enumerate() {
+                out.push(owned(row, index, column.ty).map_err(|e| database_error(&action, &e))?);
+            }
+            visit(out)
+        })
+    }
+
+    fn unit_geometries(
+        &mut self,
+        units: &UnitSource,
+        visit: &mut dyn FnMut(String, Option<geo_types::Geometry<f64>>) -> Result<(), Error>,
+    ) -> Result<GeometryOrigin, Error> {
+        let (schema, table) = split_qualified(&units.source_table);
+        let source = match &schema {
+            Some(schema) => format!("{}.{}", quote_ident(schema), quote_ident(&table)),
+            None => quote_ident(&table),
+        };
+        let id = quote_ident(&units.id_column);
+        let geometry = format!("s.{}::geometry", quote_ident(&units.geometry_column));
+        // Rows already in the distance SRID (or without one) stay as they are,
+        // so a column mixing SRIDs is read as the run read it.
+        let geometry = if units.distance_srid > 0 {
+            format!(
+                "CASE WHEN ST_SRID({geometry}) IN ({srid}, 0) THEN {geometry} \
+                 ELSE ST_Transform({geometry}, {srid}) END",
+                srid = units.distance_srid
+            )
+        } else {
+            geometry
+        };
+        let sql = format!(
+            "SELECT s.{id}::text, ST_AsBinary(ST_Force2D({geometry})) FROM {source} s \
+             WHERE s.{id}::text IN (SELECT unit_id FROM {results}.held_out WHERE run_id = $1::text::uuid \
+             AND repetition = 1)",
+            results = quote_ident(self.schema())
+        );
+        let action = format!(
+            "reading the unit geometries of run {} from table {}",
+            units.run_id, units.source_table
+        );
+        self.stream(&sql, &[&units.run_id], &action, |row| {
+            let id: String = row.try_get(0).map_err(|e| database_error(&action, &e))?;
+            let bytes: Option<Vec<u8>> = row.try_get(1).map_err(|e| database_error(&action, &e))?;
+            let shape = bytes.and_then(|b| geozero::wkb::Wkb(b).to_geo().ok());
+            visit(id, shape)
+        })?;
+        Ok(GeometryOrigin {
+            read_from: format!("PostGIS table {}", units.source_table),
+            srid: units.distance_srid,
+        })
+    }
+
+    fn crs(&mut self, srid: i32) -> Result<CrsFacts, Error> {
+        if srid <= 0 {
+            return Ok(CrsFacts::undefined(srid));
+        }
+        let session = self.session();
+        let action = "reading spatial_ref_sys";
+        let row = session
+            .runtime
+            .block_on(session.client.query_opt(
+                "SELECT coalesce(srtext, ''), coalesce(proj4text, '') FROM spatial_ref_sys WHERE srid = $1",
+                &[&srid],
+            ))
+            .map_err(|e| database_error(action, &e))?;
+        let Some(row) = row else {
+            return Ok(CrsFacts::undefined(srid));
+        };
+        let wkt: String = row.try_get(0).map_err(|e| database_error(action, &e))?;
+        let proj4: String = row.try_get(1).map_err(|e| database_error(action, &e))?;
+        Ok(CrsFacts::from_wkt(srid, &wkt, &proj4))
+    }
+}
