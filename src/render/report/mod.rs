@@ -10,7 +10,8 @@
 //! Sections, in order: what the numbers mean (skill, not causes); the run's
 //! settings in plain words; pooled and per-fold scores with their spread and the
 //! training-mean baseline; random versus spatial folds; the maps; and, when
-//! stored, per-fold coefficients, the semivariogram and correlogram, the
+//! stored, per-fold coefficients, Moran's I of the held-out residuals, the
+//! semivariogram and correlogram, the
 //! nearest-distance distributions, and the job's score history with its gates.
 //! A section whose data is absent is left out.
 //!
@@ -142,7 +143,10 @@ pub fn render_report_html(
     if !report.coefficients.is_empty() {
         sections::coefficients(&mut page, &report.coefficients);
     }
-    if report.semivariogram.is_some() || report.correlogram.is_some() {
+    if report.held_out_moran.is_some()
+        || report.semivariogram.is_some()
+        || report.correlogram.is_some()
+    {
         sections::autocorrelation(&mut page, report);
     }
     if let Some(distances) = &report.nearest_distances {

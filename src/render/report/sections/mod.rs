@@ -3,8 +3,8 @@
 use std::fmt::Write as _;
 
 use super::input::{
-    Better, Comparison, Correlogram, FoldCoefficient, NearestDistances, ReportInput, RunFacts,
-    Score, ScoreDefinition, ScoreHistory, Semivariogram,
+    Better, Comparison, Correlogram, FoldCoefficient, NearestDistances, ReportInput, ResidualMoran,
+    RunFacts, Score, ScoreDefinition, ScoreHistory, Semivariogram,
 };
 use crate::core::metrics::spread;
 use crate::render::chart::{bar_chart, Marker, Series, XyChart};
