@@ -33,6 +33,9 @@ trap 'exit 129' HUP
 
 URI=$(bash "$PGT" start "$PGDIR")
 export GEOFOLD_TEST_DB="$URI"
+# The cluster is up by now: a server that does not answer is retried for
+# 2 s, not the default 30 s, so connection tests that expect a refusal stay quick.
+export GEOFOLD_CONNECT_RETRY=2
 port=${URI##*:}
 port=${port%%/*}
 echo "scripts/test.sh: throwaway PostGIS listening on 127.0.0.1:$port (GEOFOLD_TEST_DB=$URI)" >&2

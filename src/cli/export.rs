@@ -83,10 +83,19 @@ impl ExportReport {
         for (table, rows) in &self.rows_written {
             text.push_str(&format!("  {table}: {rows} rows\n"));
         }
-        text.push_str(&format!(
-            "open {} in QGIS or any GIS: layers {} (per-unit errors) and {}_regions (fold regions)",
-            self.file, self.job, self.job
-        ));
+        // A run without regions (random folds) has no regions layer.
+        let regions = format!("{}{}", self.job, crate::results::REGIONS_SUFFIX);
+        if self.rows_written.iter().any(|(table, _)| *table == regions) {
+            text.push_str(&format!(
+                "open {} in QGIS or any GIS: layers {} (per-unit errors) and {regions} (fold regions)",
+                self.file, self.job
+            ));
+        } else {
+            text.push_str(&format!(
+                "open {} in QGIS or any GIS: layer {} (per-unit errors)",
+                self.file, self.job
+            ));
+        }
         text
     }
 }
@@ -254,6 +263,7 @@ fn copy(
             &id_column,
             &geometry_column,
             id_kind == IdKind::Integer,
+            (layer.geometry_type.starts_with("MULTI"), source_srid),
             |row| {
                 units.push(row);
                 Ok(())

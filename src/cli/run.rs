@@ -255,6 +255,13 @@ impl RunArgs {
         let v = &self.validation;
         let mut scheme_options = Options::new();
         if let Some(size) = v.block_size {
+            // JSON has no NaN or infinity (serde_json makes them null), so
+            // they are refused here, naming the option.
+            if !size.is_finite() {
+                return Err(Error::Usage(format!(
+                    "--block-size must be a finite number of CRS units, got {size}"
+                )));
+            }
             scheme_options.insert("block-size".into(), serde_json::json!(size));
         }
         if let Some(origin) = &v.grid_origin {

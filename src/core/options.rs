@@ -35,8 +35,16 @@ pub fn parse_options<T: DeserializeOwned>(
             )));
         }
     }
-    serde_json::from_value(serde_json::Value::Object(options.clone()))
-        .map_err(|error| Error::Usage(format!("{owner}: {error}")))
+    // serde_path_to_error names the option whose value did not fit.
+    serde_path_to_error::deserialize(serde_json::Value::Object(options.clone())).map_err(|error| {
+        let path = error.path().to_string();
+        let inner = error.into_inner();
+        if path.is_empty() || path == "." {
+            Error::Usage(format!("{owner}: {inner}"))
+        } else {
+            Error::Usage(format!("--{path} ({owner}): {inner}"))
+        }
+    })
 }
 
 /// Deserialises a pair of numbers given as `"X,Y"` (the command line's form;

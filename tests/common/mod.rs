@@ -1,76 +1,37 @@
-//! Shared helpers for the integration tests: the throwaway PostGIS that
-//! `scripts/test.sh` starts, the geofold binary, scratch directories.
+//! Shared helpers for the integration tests: the geofold binary in a scratch
+//! directory, the throwaway PostGIS that `scripts/test.sh` starts, GDAL as
+//! the outside reader and writer of GeoPackages, named fixtures, and the
+//! harness that runs one case on PostGIS and on GeoPackage.
+//!
+//! - [`pg`]: psql, scratch schemas, roles, other sessions (readers, watchers).
+//! - [`gdal`]: `ogrinfo`, `ogr2ogr`, `validate_gpkg.py`, file hashes and listings.
+//! - [`fixtures`]: the invented test tables (lattices, bad rows, GeoJSON).
+//! - [`reference`]: stored results checked against SQL, PostGIS and numpy.
+//! - [`stores`]: the both-store harness.
 #![allow(dead_code)]
 
+pub mod fixtures;
+pub mod gdal;
+pub mod pg;
+pub mod reference;
+pub mod stores;
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
-use std::sync::atomic::{AtomicUsize, Ordering};
+use std::process::{Child, Command, Output, Stdio};
+use std::time::{Duration, Instant};
 
-/// The test database URI. Integration tests need the PostGIS that
-/// `bash scripts/test.sh` starts; without it they fail rather than pass unseen.
-pub fn db_uri() -> String {
-    std::env::var("GEOFOLD_TEST_DB")
-        .expect("GEOFOLD_TEST_DB is not set: run the suite with `bash scripts/test.sh`, which starts PostGIS")
-}
-
-static COUNTER: AtomicUsize = AtomicUsize::new(0);
-
-/// A schema name unique to this test process and call, e.g. `t_1234_7_bad_ids`.
-pub fn unique_name(label: &str) -> String {
-    format!(
-        "t_{}_{}_{label}",
-        std::process::id(),
-        COUNTER.fetch_add(1, Ordering::SeqCst)
-    )
-}
-
-/// Runs SQL through psql (ON_ERROR_STOP) and returns stdout (unaligned, tuples only,
-/// fields separated by `|`). Panics with psql's stderr on failure.
-pub fn psql(sql: &str) -> String {
-    let output = Command::new("psql")
-        .arg(db_uri())
-        .args(["-X", "-q", "-A", "-t", "-v", "ON_ERROR_STOP=1", "-c", sql])
-        .output()
-        .expect("psql runs");
-    assert!(
-        output.status.success(),
-        "psql failed on {sql}:\n{}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-    String::from_utf8_lossy(&output.stdout)
-        .trim_end()
-        .to_string()
-}
-
-/// Runs a SQL script (several statements) through psql.
-pub fn psql_script(sql: &str) {
-    let output = Command::new("psql")
-        .arg(db_uri())
-        .args(["-X", "-q", "-v", "ON_ERROR_STOP=1"])
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .and_then(|mut child| {
-            use std::io::Write;
-            child
-                .stdin
-                .take()
-                .expect("stdin")
-                .write_all(sql.as_bytes())?;
-            child.wait_with_output()
-        })
-        .expect("psql runs");
-    assert!(
-        output.status.success(),
-        "psql script failed:\n{}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-}
+#[allow(unused_imports)]
+pub use pg::{db_uri, psql, psql_at, psql_script, unique_name};
 
 /// A scratch directory removed at drop.
 pub struct Workdir {
     pub dir: tempfile::TempDir,
+}
+
+impl Default for Workdir {
+    fn default() -> Workdir {
+        Workdir::new()
+    }
 }
 
 impl Workdir {
@@ -95,6 +56,23 @@ impl Workdir {
         command.env("NO_COLOR", "1");
         command
     }
+
+    /// `geofold ARGS` in this directory, run to the end.
+    pub fn run<S: AsRef<std::ffi::OsStr>>(&self, args: &[S]) -> Output {
+        let mut command = self.geofold();
+        command.args(args);
+        run(command)
+    }
+
+    /// `geofold ARGS` started in the background, its output piped.
+    pub fn spawn<S: AsRef<std::ffi::OsStr>>(&self, args: &[S]) -> Child {
+        self.geofold()
+            .args(args)
+            .stdout(Stdio::piped())
+            .stderr(Stdio::piped())
+            .spawn()
+            .expect("geofold starts")
+    }
 }
 
 /// Runs and returns the output; prints stderr when the test fails later.
@@ -109,6 +87,16 @@ pub fn code(output: &Output) -> i32 {
     output.status.code().expect("exited normally")
 }
 
+/// stdout as text.
+pub fn stdout(output: &Output) -> String {
+    String::from_utf8_lossy(&output.stdout).into_owned()
+}
+
+/// stderr as text.
+pub fn stderr(output: &Output) -> String {
+    String::from_utf8_lossy(&output.stderr).into_owned()
+}
+
 /// Parses stdout as JSON.
 pub fn json(output: &Output) -> serde_json::Value {
     serde_json::from_slice(&output.stdout).unwrap_or_else(|e| {
@@ -119,38 +107,91 @@ pub fn json(output: &Output) -> serde_json::Value {
     })
 }
 
-/// Checks that `schema.layer` is a layer QGIS lists with no hand work: registered in
-/// geometry_columns with `geometry_type` and `srid` (so its geometry column has a
-/// type modifier), and its first column `key` an integer unique over its `rows` rows.
-pub fn check_qgis_layer(
-    schema: &str,
-    layer: &str,
-    key: &str,
-    geometry_type: &str,
-    srid: i32,
-    rows: usize,
-) {
+/// Asserts exit 0 and returns the JSON document.
+pub fn ok_json(output: &Output) -> serde_json::Value {
+    assert_eq!(code(output), 0, "geofold failed: {}", stderr(output));
+    json(output)
+}
+
+/// Asserts the exit code and returns stderr.
+pub fn fails(output: &Output, expected: i32) -> String {
+    let message = stderr(output);
+    assert_eq!(code(output), expected, "stderr: {message}");
+    message
+}
+
+/// Asserts that `text` contains every part.
+pub fn assert_contains(text: &str, parts: &[&str]) {
+    for part in parts {
+        assert!(text.contains(part), "expected {part:?} in:\n{text}");
+    }
+}
+
+/// `runs[index].run_id` of a summary.
+pub fn run_id(document: &serde_json::Value, index: usize) -> String {
+    document["runs"][index]["run_id"]
+        .as_str()
+        .unwrap_or_else(|| panic!("no runs[{index}].run_id in {document}"))
+        .to_string()
+}
+
+/// Polls `condition` every 20 ms until it holds; panics after `limit`
+/// naming `what`. Not a timing check: the limit only keeps a broken test
+/// from hanging.
+pub fn wait_until(what: &str, limit: Duration, mut condition: impl FnMut() -> bool) {
+    let started = Instant::now();
+    while !condition() {
+        assert!(started.elapsed() < limit, "gave up waiting for {what}");
+        std::thread::sleep(Duration::from_millis(20));
+    }
+}
+
+/// Kills a child with SIGKILL (`kill -9`: no cleanup runs) and reaps it.
+pub fn kill_9(child: &mut Child) {
+    child.kill().expect("SIGKILL the child");
+    let status = child.wait().expect("reap the child");
+    use std::os::unix::process::ExitStatusExt;
     assert_eq!(
-        psql(&format!(
-            "SELECT type, srid FROM geometry_columns WHERE f_table_schema = '{schema}' AND f_table_name = '{layer}'"
-        )),
-        format!("{geometry_type}|{srid}"),
-        "{schema}.{layer} in geometry_columns"
+        status.signal(),
+        Some(9),
+        "the child was killed by SIGKILL, not finished ({status})"
     );
-    assert_eq!(
-        psql(&format!(
-            "SELECT attname, atttypid::regtype FROM pg_attribute WHERE attrelid = '{schema}.{layer}'::regclass AND attnum = 1"
-        )),
-        format!("{key}|integer"),
-        "first column of {schema}.{layer}"
+}
+
+/// The results tables that hold a run's rows (src/results/mod.rs), for
+/// checks that a failed run left none.
+pub const RUN_TABLES: &[&str] = &[
+    "held_out",
+    "unit_summaries",
+    "folds",
+    "fold_score_values",
+    "run_score_values",
+    "fold_regions",
+    "fold_exclusions",
+];
+
+/// Two numbers read through different tools agree to 1e-12 relative (text
+/// round trips may differ in the last digits).
+pub fn assert_close(a: f64, b: f64, what: &str) {
+    assert!(
+        (a - b).abs() <= 1e-12 * a.abs().max(b.abs()).max(1.0),
+        "{what}: {a} vs {b}"
     );
-    assert_eq!(
-        psql(&format!(
-            "SELECT count(*), count(DISTINCT {key}) FROM {schema}.{layer}"
-        )),
-        format!("{rows}|{rows}"),
-        "{key} is unique in {schema}.{layer}"
-    );
+}
+
+/// Compares two tables of rows (fields as text) field by field: numbers to
+/// 1e-12 relative, everything else exactly; `what` names the comparison.
+pub fn assert_rows_match(a: &[Vec<String>], b: &[Vec<String>], what: &str) {
+    assert_eq!(a.len(), b.len(), "{what}: row counts\n{a:?}\n{b:?}");
+    for (row_a, row_b) in a.iter().zip(b) {
+        assert_eq!(row_a.len(), row_b.len(), "{what}: {row_a:?} vs {row_b:?}");
+        for (x, y) in row_a.iter().zip(row_b) {
+            match (x.parse::<f64>(), y.parse::<f64>()) {
+                (Ok(x), Ok(y)) => assert_close(x, y, &format!("{what}: {row_a:?} vs {row_b:?}")),
+                _ => assert_eq!(x, y, "{what}: {row_a:?} vs {row_b:?}"),
+            }
+        }
+    }
 }
 
 /// The Python of the project's own virtual environment, holding the test-time
@@ -176,9 +217,9 @@ pub fn python_script(script: &str, args: &[&str], input: &str) -> String {
     let mut child = python()
         .arg(&path)
         .args(args)
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .stderr(std::process::Stdio::piped())
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
         .spawn()
         .expect("the reference python runs");
     child
@@ -194,27 +235,6 @@ pub fn python_script(script: &str, args: &[&str], input: &str) -> String {
         String::from_utf8_lossy(&output.stderr)
     );
     String::from_utf8(output.stdout).expect("UTF-8 from the reference script")
-}
-
-/// Runs SQL through psql against another server than the suite's (ON_ERROR_STOP)
-/// and returns stdout as [`psql`] does.
-pub fn psql_at(uri: &str, sql: &str) -> String {
-    let output = Command::new("psql")
-        .arg(uri)
-        .args(["-X", "-q", "-A", "-t", "-v", "ON_ERROR_STOP=1", "-c", sql])
-        .env_remove("PGSERVICE")
-        .env_remove("PGSSLMODE")
-        .env_remove("PGOPTIONS")
-        .output()
-        .expect("psql runs");
-    assert!(
-        output.status.success(),
-        "psql failed on {sql}:\n{}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-    String::from_utf8_lossy(&output.stdout)
-        .trim_end()
-        .to_string()
 }
 
 /// A throwaway cluster of its own, started by `scripts/pg-throwaway.sh` with

@@ -370,6 +370,15 @@ impl ResultStore for GpkgStore {
         let path = self.path.clone();
         match self.conn.as_mut() {
             Some(conn) => {
+                // Before anything is written into the file: a job whose layers
+                // would replace the source layer or a table geofold did not make
+                // is refused with the file unchanged.
+                if let Some((_, job)) = &self.lock {
+                    let source = info.file.clone().unwrap_or_default();
+                    let source_layer =
+                        same_file(&path, &source).then_some(info.qualified_table.as_str());
+                    check_job_layers(conn, &path, job, source_layer)?;
+                }
                 let triggers = trigger_set(conn, &path)?;
                 let tx = conn
                     .transaction_with_behavior(TransactionBehavior::Immediate)
@@ -396,19 +405,12 @@ impl ResultStore for GpkgStore {
     }
 
     fn begin(&mut self, info: &SourceInfo, records: &[RunRecord]) -> Result<(), Error> {
-        let job = records.first().map(|r| r.job.as_str()).unwrap_or_default();
         let srs = source_srs(info)?;
         let path = self.path.clone();
-        let source = info.file.clone().unwrap_or_default();
-        let is_new = self.new_file.is_some();
         let conn = self
             .conn
             .as_mut()
             .ok_or_else(|| Error::Internal("begin before prepare".into()))?;
-        if !is_new {
-            let source_layer = same_file(&path, &source).then_some(info.qualified_table.as_str());
-            check_job_layers(conn, &path, job, source_layer)?;
-        }
         let action = |e: rusqlite::Error| sqlite_error(&path, "recording the run", &e);
         let tx = conn
             .transaction_with_behavior(TransactionBehavior::Immediate)

@@ -9,8 +9,9 @@
 //! unit view joins the source by the source's own id column, casting only
 //! the results side, so the source's index serves the join.
 //!
-//! A view is replaced only when its definition changes (a hash of both
-//! definitions is kept in `jobs`), because replacing it waits for every
+//! A view is replaced only when its definition or the source table it joins
+//! changes (a hash of both definitions and the table's oid are kept in
+//! `jobs`), because replacing it waits for every
 //! reader that holds it (a GIS with the layer open) and makes new readers
 //! queue behind that wait.
 
@@ -42,6 +43,13 @@ fn unit_geometry(info: &SourceInfo, data: &Dataset) -> (String, String) {
     }
     let column = if info.declared_geometry_type == "GEOGRAPHY" {
         format!("{column}::geometry")
+    } else if srid != 0 {
+        // An untyped column may mix SRIDs (a run with --distance-srid reads
+        // it); the layer shows every row in the source SRID, so the type
+        // modifier below holds for every row.
+        format!(
+            "CASE WHEN ST_SRID({column}) = {srid} THEN {column} ELSE ST_Transform({column}, {srid}) END"
+        )
     } else {
         column
     };

@@ -234,7 +234,13 @@ impl PostgisSource {
                  pass --distance-srid N with a projected CRS in metres, and PostGIS will cast and transform it"
             )));
         }
-        let declared_geometry_type = declared_type(&geom.formatted);
+        // A geography column is GEOGRAPHY whatever its type modifier, so the
+        // job view casts it to a typed geometry (layers::unit_geometry).
+        let declared_geometry_type = if geography {
+            "GEOGRAPHY".to_string()
+        } else {
+            declared_type(&geom.formatted)
+        };
         let source_srid = if geography {
             declared_srid(&geom.formatted).unwrap_or(4326)
         } else {

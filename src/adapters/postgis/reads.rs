@@ -115,7 +115,10 @@ impl PostgisStore {
     }
 
     /// The unit layer of a run: its per-unit errors joined to the source
-    /// geometry (2D ISO WKB), in unit id order.
+    /// geometry (2D ISO WKB), in unit id order; `multi` promotes single
+    /// geometries to multi ones (for a layer declared MULTI*, as the job's
+    /// PostGIS view casts them), and rows of a column mixing SRIDs are
+    /// transformed to `srid`, the layer's (as the view does).
     ///
     /// # Errors
     /// [`Error::NotFound`] when the source table or its columns are gone.
@@ -127,6 +130,7 @@ impl PostgisStore {
         id_column: &str,
         geometry_column: &str,
         integer_ids: bool,
+        (multi, srid): (bool, i32),
         mut visit: impl FnMut(UnitLayerRow) -> Result<(), Error>,
     ) -> Result<(), Error> {
         let (schema, table) = split_qualified(source_table);
@@ -140,12 +144,25 @@ impl PostgisStore {
         } else {
             ("text", format!("s.{id}::text"))
         };
+        let geometry = format!("s.{}::geometry", quote_ident(geometry_column));
+        let geometry = if srid != 0 {
+            format!(
+                "CASE WHEN ST_SRID({geometry}) IN ({srid}, 0) THEN {geometry} \
+                 ELSE ST_Transform({geometry}, {srid}) END"
+            )
+        } else {
+            geometry
+        };
+        let geometry = if multi {
+            format!("ST_Multi({geometry})")
+        } else {
+            geometry
+        };
         let sql = format!(
             "SELECT {unit_id}, e.run_id::text, e.fold::int8, e.observed, e.predicted, e.residual, e.abs_error,
-                    e.rmse, e.repetitions::int8, ST_AsBinary(ST_Force2D(s.{geom}::geometry))
+                    e.rmse, e.repetitions::int8, ST_AsBinary(ST_Force2D({geometry}))
              FROM {schema}.unit_errors e JOIN {source} s ON s.{id} = e.unit_id::{cast}
              WHERE e.run_id = $1 ORDER BY e.unit_id",
-            geom = quote_ident(geometry_column),
             schema = quote_ident(self.schema()),
         );
         let action =

@@ -607,6 +607,15 @@ async fn point_job_views(
     let q = |name: &str| format!("{}.{}", quote_ident(schema), quote_ident(name));
     let jobs = q(JOBS.name);
     let action = format!("making the map views of job {job}");
+    // A view follows its source table by identity, not by name: when the
+    // table the job names was replaced (a new table swapped in under the
+    // name), the view must be made again even if its SQL text is the same.
+    let source: u32 = tx
+        .query_one("SELECT $1::text::regclass::oid", &[&info.qualified_table])
+        .await
+        .and_then(|row| row.try_get(0))
+        .map_err(|e| database_error(&action, &e))?;
+    let definition = format!("{} {source}", views.definition);
     let recorded: Option<String> = tx
         .query_opt(
             &format!("SELECT layer_definition FROM {jobs} WHERE job = $1"),
@@ -643,7 +652,7 @@ async fn point_job_views(
         }
     }
     let wanted: Vec<&String> = views.views.iter().map(|(name, _)| name).collect();
-    let unchanged = recorded.as_deref() == Some(views.definition.as_str())
+    let unchanged = recorded.as_deref() == Some(definition.as_str())
         && wanted.iter().all(|name| present.contains(name));
     if !unchanged {
         for name in present.iter().rev() {
@@ -674,7 +683,7 @@ async fn point_job_views(
                 &views.geometry_type,
                 &info.source_srid,
                 &info.srid,
-                &views.definition,
+                &definition,
             ],
         )
         .await
