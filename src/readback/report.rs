@@ -91,16 +91,16 @@ fn distance_unit(crs: &CrsFacts) -> String {
     }
 }
 
-/// A weights rule in words.
+/// A weights rule in words: "the 8 nearest units as neighbours (knn:8, weights row-standardised)".
 fn weights_words(rule: &str) -> String {
     let words = match rule.split_once(':') {
-        Some(("knn", k)) => format!("the {k} nearest units"),
-        Some(("band", d)) => format!("units within {d} CRS units"),
-        _ if rule == "queen" => "units sharing a boundary point (queen)".to_string(),
-        _ if rule == "rook" => "units sharing a boundary edge (rook)".to_string(),
-        _ => rule.to_string(),
+        Some(("knn", k)) => format!("the {k} nearest units as neighbours"),
+        Some(("band", d)) => format!("units within {d} CRS units as neighbours"),
+        _ if rule == "queen" => "units sharing a boundary point as neighbours".to_string(),
+        _ if rule == "rook" => "units sharing a boundary edge as neighbours".to_string(),
+        _ => format!("neighbours by {rule}"),
     };
-    format!("weights {words} ({rule}), row-standardised")
+    format!("{words} ({rule}, weights row-standardised)")
 }
 
 /// Where the units came from, in words.

@@ -291,7 +291,7 @@ pub fn full_report() -> ReportInput {
         }
     }
     report.held_out_moran = Some(ResidualMoran {
-        weights: "8 nearest units (knn:8), row-standardised".to_string(),
+        weights: "the 8 nearest units as neighbours (knn:8, weights row-standardised)".to_string(),
         units: 4,
         sampled_from: None,
         value: 0.21,

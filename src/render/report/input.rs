@@ -264,7 +264,8 @@ pub struct NearestDistances {
 /// cluster in space.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ResidualMoran {
-    /// The spatial weights, in words: "8 nearest units (knn:8), row-standardised".
+    /// The spatial weights, in words: "the 8 nearest units as neighbours (knn:8, weights
+    /// row-standardised)".
     pub weights: String,
     /// Units used.
     pub units: u64,

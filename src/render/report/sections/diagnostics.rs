@@ -35,7 +35,7 @@ pub(super) fn held_out_moran(page: &mut String, moran: &ResidualMoran) {
     let _ = write!(
         page,
         "<h3>Held-out residuals</h3><p class=\"sentence\">Moran's I of the held-out residuals is {} \
-         (expected {} without spatial structure; z {}, two-sided p {} under randomisation), with {} \
+         (expected {} without spatial structure; z {}, two-sided p {} under randomisation), taking {} \
          over {} units{}. {}</p>",
         number(moran.value),
         number(moran.expected),
