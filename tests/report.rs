@@ -188,7 +188,7 @@ fn the_demo_report_opens_in_chromium_and_shows_the_fold_colours() {
         );
     }
     let shot = workdir.path("shot.png");
-    let image = screenshot(&page, &shot, 1100, 5600);
+    let image = screenshot(&page, &shot, 1100, 3400);
     // The fold layout paints each of the demo's 5 folds in its palette colour
     // over many pixels (its blocks cover the map panel).
     for (fold, colour) in FOLD_COLOURS.iter().take(5).enumerate() {

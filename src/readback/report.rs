@@ -142,7 +142,10 @@ fn scheme_words(run: &RunRecord, crs: &CrsFacts) -> (String, Vec<Setting>) {
             run.scheme.clone()
         }
     };
-    settings.push(setting("folds", run.folds.to_string()));
+    // A scheme's own description names its folds; a raw option list may not.
+    if settings.iter().all(|s| s.name != "folds") && !scheme.contains(" folds") {
+        settings.push(setting("folds", run.folds.to_string()));
+    }
     settings.push(setting("repetitions", run.repeats.to_string()));
     settings.push(setting("seed", run.seed.to_string()));
     if let Some(radius) = run.parameters["exclusion-radius"].as_f64() {

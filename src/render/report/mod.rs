@@ -177,7 +177,7 @@ table{border-collapse:collapse;margin:.5em 0 1em}th,td{border:1px solid #d0d0d0;
 td.num,th.num{text-align:right;font-variant-numeric:tabular-nums}th{background:#f2f2f2}\
 dl.settings{display:grid;grid-template-columns:max-content 1fr;gap:.25em 1.2em}dl.settings dt{font-weight:bold}dl.settings dd{margin:0}\
 figure{margin:1em 0}figure svg{max-width:100%;height:auto}figcaption{color:#444;font-size:.92em}\
-.sentence{font-size:1.05em}footer{margin-top:2.5em;color:#555;font-size:.9em;border-top:1px solid #ccc}";
+.sentence{font-size:1.05em}.advice{white-space:pre-line}footer{margin-top:2.5em;color:#555;font-size:.9em;border-top:1px solid #ccc}";
 
 #[cfg(test)]
 mod tests;
