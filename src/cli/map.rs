@@ -12,7 +12,7 @@ use super::output::{render_error, split_fold, write_atomically, RunArgs};
 use super::store::StoreArgs;
 use crate::error::Error;
 use crate::readback::load::{load, Reading};
-use crate::readback::map::map_input;
+use crate::readback::map::take_map_input;
 use crate::render::{render_map_svg, svg_to_png, MapKind, MapOptions};
 
 /// Which map.
@@ -140,7 +140,7 @@ pub fn run(args: &MapArgs) -> Result<MapWritten, Error> {
     }
     let choice = args.run.choice()?;
     let mut store = args.store.open(args.run.job.as_deref())?;
-    let stored = load(
+    let mut stored = load(
         store.as_mut(),
         &choice,
         Reading {
@@ -156,7 +156,7 @@ pub fn run(args: &MapArgs) -> Result<MapWritten, Error> {
         Layer::Error => MapKind::Error,
         Layer::Residual => MapKind::Residual,
     };
-    let input = map_input(&stored, &args.target_unit);
+    let input = take_map_input(&mut stored, &args.target_unit);
     let options = MapOptions {
         width: args.width,
         height: args.width * 2 / 3,

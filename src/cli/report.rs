@@ -13,7 +13,7 @@ use super::output::{render_error, split_fold, write_atomically, RunArgs};
 use super::store::StoreArgs;
 use crate::error::Error;
 use crate::readback::load::{load, Reading};
-use crate::readback::map::map_input;
+use crate::readback::map::take_map_input;
 use crate::readback::report::report_input;
 use crate::render::report::{render_report_html, report_map_kinds, ReportOptions};
 
@@ -104,7 +104,7 @@ impl ReportWritten {
 pub fn run(args: &ReportArgs) -> Result<ReportWritten, Error> {
     let choice = args.run.choice()?;
     let mut store = args.store.open(args.run.job.as_deref())?;
-    let stored = load(
+    let mut stored = load(
         store.as_mut(),
         &choice,
         Reading {
@@ -113,7 +113,7 @@ pub fn run(args: &ReportArgs) -> Result<ReportWritten, Error> {
         },
     )?;
     let report = report_input(&stored, &args.target_unit);
-    let maps = map_input(&stored, &args.target_unit);
+    let maps = take_map_input(&mut stored, &args.target_unit);
     let maps = (!maps.units.is_empty()).then_some(maps);
     let options = ReportOptions {
         split_fold: args.fold,

@@ -2,7 +2,7 @@
 //! [`ReadBack`](crate::adapters::readback::ReadBack): the same reads, in the
 //! same order, from PostGIS and from a GeoPackage.
 
-use std::collections::{BTreeMap, HashMap};
+use std::collections::BTreeMap;
 
 use super::{FoldRecord, InspectionRecord, MoranRecord, Row, RunRecord, StoredRun, UnitRecord};
 use crate::adapters::history::Store;
@@ -396,19 +396,22 @@ fn read_units(store: &mut dyn Store, stored: &mut StoredRun) -> Result<(), Error
         source_srid: run.source_srid,
         distance_srid: run.distance_srid,
     };
-    let mut shapes: HashMap<String, geo_types::Geometry<f64>> = HashMap::with_capacity(units.len());
+    // Shapes go straight into the units (sorted by id), so no second map of a
+    // million ids is held.
+    let mut records: Vec<UnitRecord> = units.into_values().collect();
     let origin = store.unit_geometries(&source, &mut |unit_id, shape| {
-        if let Some(shape) = shape {
-            shapes.entry(unit_id).or_insert(shape);
+        if let (Ok(at), Some(shape)) = (
+            records.binary_search_by(|u| u.unit_id.as_str().cmp(&unit_id)),
+            shape,
+        ) {
+            records[at].geometry.get_or_insert(shape);
         }
         Ok(())
     })?;
     let mut missing = 0u64;
-    let mut records: Vec<UnitRecord> = units.into_values().collect();
     for unit in &mut records {
         unit.excluded_from.sort_unstable();
         unit.excluded_from.dedup();
-        unit.geometry = shapes.remove(&unit.unit_id);
         if unit.geometry.is_none() {
             missing += 1;
         }

@@ -2,6 +2,8 @@
 //! folds whose training left it out, its absolute error and residual; the
 //! fold regions of repetition 1; the CRS in the renderer's terms. Pure.
 
+use geo_types::Geometry;
+
 use super::{StoredRun, UnitRecord};
 use crate::adapters::readback::CrsFacts;
 use crate::adapters::CrsKind;
@@ -45,27 +47,23 @@ pub fn title(stored: &StoredRun) -> String {
     )
 }
 
-fn map_unit(unit: &UnitRecord) -> Option<MapUnit> {
-    Some(MapUnit {
-        geometry: unit.geometry.clone()?,
+fn map_unit(unit: &UnitRecord, geometry: Geometry<f64>) -> MapUnit {
+    MapUnit {
+        geometry,
         fold: unit.fold,
         excluded_from: unit.excluded_from.clone(),
         abs_error: unit.abs_error,
         residual: unit.residual,
-    })
+    }
 }
 
-/// The map input of a stored run read with its units; `target_unit` is the
-/// target's unit for the legends (the store does not know it), empty for none.
-/// Units without a geometry are left out (counted in
-/// [`StoredRun::units_without_geometry`]).
-pub fn map_input(stored: &StoredRun, target_unit: &str) -> MapInput {
+fn with_units(stored: &StoredRun, target_unit: &str, units: Vec<MapUnit>) -> MapInput {
     MapInput {
         title: title(stored),
         crs: crs_info(&stored.crs),
         target: stored.run.target_column.clone(),
         target_unit: target_unit.to_string(),
-        units: stored.units.iter().filter_map(map_unit).collect(),
+        units,
         regions: stored
             .regions
             .iter()
@@ -75,6 +73,33 @@ pub fn map_input(stored: &StoredRun, target_unit: &str) -> MapInput {
             })
             .collect(),
     }
+}
+
+/// The map input of a stored run read with its units; `target_unit` is the
+/// target's unit for the legends (the store does not know it), empty for none.
+/// Units without a geometry are left out (counted in
+/// [`StoredRun::units_without_geometry`]).
+pub fn map_input(stored: &StoredRun, target_unit: &str) -> MapInput {
+    let units = stored
+        .units
+        .iter()
+        .filter_map(|u| Some(map_unit(u, u.geometry.clone()?)))
+        .collect();
+    with_units(stored, target_unit, units)
+}
+
+/// [`map_input`], moving the unit shapes out of `stored` instead of copying
+/// them (at a million units the shapes are most of the memory).
+pub fn take_map_input(stored: &mut StoredRun, target_unit: &str) -> MapInput {
+    let units = stored
+        .units
+        .iter_mut()
+        .filter_map(|u| {
+            let geometry = u.geometry.take()?;
+            Some(map_unit(u, geometry))
+        })
+        .collect();
+    with_units(stored, target_unit, units)
 }
 
 #[cfg(test)]
