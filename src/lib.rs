@@ -2,7 +2,8 @@
 //! back to PostGIS or GeoPackage.
 //!
 //! - [`core`]: pure units, folds, models, metrics.
-//! - [`spec`]: the run specification; [`pipeline`]: the one pipeline that runs it.
+//! - [`spec`]: the run specification; [`pipeline`]: the one pipeline that runs it;
+//!   [`scoring`]: `geofold score`, the predictions of a model fitted elsewhere.
 //! - [`results`]: one definition of every results table.
 //! - [`inspect`]: spatial diagnostics of a layer, stored beside the runs.
 //! - [`adapters`]: PostGIS and GeoPackage readers and result stores.
@@ -27,4 +28,5 @@ pub mod readback;
 pub mod render;
 pub mod report;
 pub mod results;
+pub mod scoring;
 pub mod spec;

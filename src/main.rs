@@ -42,6 +42,7 @@ fn main() {
         Command::Inspect(args) => args.json,
         Command::Report(args) => args.json,
         Command::Map(args) => args.json,
+        Command::Score(args) => args.json,
         Command::Completions(_) | Command::Man(_) => false,
     };
     let bars = if cli.quiet
@@ -97,6 +98,9 @@ fn main() {
             .map(|(s, hint)| Printed::new(s.exit_code, format!("{}\n{hint}", s.to_text()), &s)),
         Command::Export(args) => {
             geofold::cli::export::run(args).map(|r| Printed::new(exit::OK, r.to_text(), &r))
+        }
+        Command::Score(args) => {
+            geofold::cli::score::run(args).map(|s| Printed::new(s.exit_code, s.to_text(), &s))
         }
         Command::Inspect(args) => {
             geofold::cli::inspect::run(args).map(|r| Printed::new(exit::OK, r.to_text(), &r))

@@ -7,14 +7,18 @@
 //! 2. Open the source and check its CRS against what the scheme needs.
 //! 3. Open the results store and enter the job's exclusive section (a second
 //!    run of the job exits busy, or waits `--wait`).
-//! 4. Read and check every row. With `--skip-unchanged`, stop here with
+//! 4. Read and check every row (and the target and exposure against the
+//!    model's family). With `--skip-unchanged`, stop here with
 //!    [`Outcome::Unchanged`] when the input fingerprint and the settings hash
-//!    match the job's last successful run. Assign every repetition's folds.
+//!    match the job's last successful run. Assign every repetition's folds and
+//!    check held-out levels of text features against `--unseen-levels`.
 //!    Bad input stops here: nothing is written, no run is recorded.
 //! 5. Create or upgrade the results tables, mark failed the runs of
 //!    processes that are gone, and record the runs as `running`.
 //! 6. Fit and score; write every result row in one transaction.
 //!    A failure here marks the runs failed and leaves no result rows.
+//!    With `--assign-only` nothing is fitted: the folds are written and the
+//!    runs marked `assigned`, awaiting `geofold score` ([`crate::scoring`]).
 //! 7. With gates, read the run's stored scores and the job's baseline back
 //!    and judge them ([`crate::gates`]); a breach leaves the results written
 //!    and sets the summary's exit code to 1.
@@ -38,13 +42,15 @@ use crate::adapters::{default_job, CrsKind, ResultStore, Source, SourceInfo, Sto
 use crate::core::diagnostics::held_out::HeldOutWeights;
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
+use crate::core::metrics::Family;
+use crate::core::models::design::{unseen_levels, UnseenPolicy};
 use crate::core::neighbours::NeighbourIndex;
 use crate::core::units::{Dataset, UnitCollector};
-use crate::core::validate::{assign_folds, fit_and_score, Plan, RunOutcome};
-use crate::error::{exit, Error};
+use crate::core::validate::{assign_folds, assigned, fit_and_score, id_list, Plan, RunOutcome};
+use crate::error::{exit, Error, Location};
 use crate::progress::{Phase, Progress, Silent};
 use crate::report::Summary;
-use crate::results::rows::{run_rows, FinishedRun, RunRecord};
+use crate::results::rows::{run_rows, FinishedRun, RunRecord, Stage};
 use crate::spec::{Limits, ResultsRef, RunSpec, SourceRef};
 
 /// Opens a source.
@@ -193,6 +199,7 @@ pub fn read_units(
     )
     .with_group(info.group_column.as_deref())
     .with_exposure(info.exposure_column.as_deref())
+    .with_text_features(&info.text_features)
     .with_row_counter(Arc::clone(&counter));
     progress.start(Phase::Read, None);
     let read = read_rows(source, &mut collector, &counter, progress);
@@ -225,6 +232,115 @@ pub fn read_units(
         "read units"
     );
     Ok(data)
+}
+
+/// At most this many bad target or exposure values are listed.
+const MAX_LISTED: usize = 1000;
+
+/// Checks every unit's target (and exposure) against the model's family:
+/// 0/1 for binary, non-negative whole numbers for counts, positive exposures.
+///
+/// # Errors
+/// [`Error::Input`] naming each row.
+pub fn check_family(info: &SourceInfo, data: &Dataset, family: Family) -> Result<(), Error> {
+    let mut problems = Vec::new();
+    let mut more = 0usize;
+    let mut add = |column: &str, i: usize, problem: String| {
+        if problems.len() < MAX_LISTED {
+            problems.push((
+                Location {
+                    table: info.table.clone(),
+                    column: Some(column.to_string()),
+                    row_id: Some(data.ids[i].to_string()),
+                },
+                problem,
+            ));
+        } else {
+            more += 1;
+        }
+    };
+    for i in 0..data.len() {
+        if let Err(problem) = family.check_observed(data.target[i]) {
+            add(&info.target_column, i, problem);
+        }
+        if let (Family::Count, Some(exposure), Some(column)) =
+            (family, &data.exposure, &info.exposure_column)
+        {
+            let value = exposure[i];
+            if value.is_nan() || value <= 0.0 {
+                add(
+                    column,
+                    i,
+                    format!(
+                        "exposure is {value}; it must be positive (its logarithm is the offset)"
+                    ),
+                );
+            }
+        }
+    }
+    if problems.is_empty() {
+        return Ok(());
+    }
+    if more > 0 {
+        problems.push((
+            Location {
+                table: info.table.clone(),
+                column: None,
+                row_id: None,
+            },
+            format!("{more} further rows not listed"),
+        ));
+    }
+    Err(Error::Input { problems })
+}
+
+/// Held-out levels of text features that their fold's training units never
+/// had: an error naming fold, column, level and rows under the `error`
+/// policy; otherwise `(note, units)` for the summary.
+fn check_unseen(
+    info: &SourceInfo,
+    data: &Dataset,
+    sets: &[FoldSet],
+    policy: UnseenPolicy,
+) -> Result<Vec<(String, usize)>, Error> {
+    let mut notes: Vec<(String, usize)> = Vec::new();
+    let mut problems = Vec::new();
+    for (repetition, folds) in sets.iter().enumerate() {
+        for unseen in unseen_levels(data, folds) {
+            match policy {
+                UnseenPolicy::Error => problems.push((
+                    Location {
+                        table: info.table.clone(),
+                        column: Some(unseen.column.clone()),
+                        row_id: Some(id_list(data, &unseen.units, 5)),
+                    },
+                    format!(
+                        "level {:?} is held out in fold {} (repetition {}) but no training unit of that fold has it; \
+                         pass --unseen-levels zero to predict such units as the fold's reference level, or use folds \
+                         that keep the level in training",
+                        unseen.level,
+                        unseen.fold + 1,
+                        repetition + 1
+                    ),
+                )),
+                UnseenPolicy::Zero => {
+                    let note = format!(
+                        "{}={} unseen in training: all-zero indicators (the fold's reference level)",
+                        unseen.column, unseen.level
+                    );
+                    match notes.iter_mut().find(|(n, _)| *n == note) {
+                        Some(entry) => entry.1 += unseen.units.len(),
+                        None => notes.push((note, unseen.units.len())),
+                    }
+                }
+            }
+        }
+    }
+    if problems.is_empty() {
+        Ok(notes)
+    } else {
+        Err(Error::Input { problems })
+    }
 }
 
 /// Reads every row into the collector, updating the display from a second
@@ -266,6 +382,8 @@ struct Planned<'a> {
     scheme: &'a dyn FoldScheme,
     record: RunRecord,
     folds: Vec<FoldSet>,
+    /// Held-out units given all-zero indicators (`--unseen-levels zero`).
+    unseen: Vec<(String, usize)>,
 }
 
 /// What a run came to.
@@ -341,7 +459,9 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
         &spec.columns,
         spec.distance_srid,
         &spec.limits,
-        checked.scheme.needs_distances() || spec.exclusion_radius.is_some(),
+        checked.scheme.needs_distances()
+            || checked.model.needs_distances()
+            || spec.exclusion_radius.is_some(),
         spec.assume_metres,
     )?;
     let job = job_of(spec.job.as_deref(), &spec.source, &spec.results, &info);
@@ -350,6 +470,7 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
     store.lock_job(&job, spec.limits.wait())?;
     let data = read_units(source.as_mut(), &info, &job, spec.strict, progress)?;
     drop(source);
+    check_family(&info, &data, checked.model.family())?;
 
     let settings_hash = spec.settings_hash();
     if spec.skip_unchanged {
@@ -395,6 +516,7 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
             exclusion_radius: spec.exclusion_radius,
         };
         let folds = assign_folds(&input, &plan)?;
+        let unseen = check_unseen(&info, &data, &folds, spec.unseen_levels)?;
         let record = RunRecord {
             run_id: Uuid::new_v4(),
             job: job.clone(),
@@ -403,14 +525,11 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
             scheme: scheme.name().to_string(),
             model: checked.model.name().to_string(),
             family: checked.model.family().name(),
-            parameters: serde_json::json!({
-                "scheme": scheme.parameters(),
-                "model": checked.model.parameters(),
-                "exclusion-radius": spec.exclusion_radius,
-                SETTINGS_HASH_KEY: settings_hash,
-                GATES_KEY: spec.gates,
-                BASELINE_RUNS_KEY: spec.baseline_runs,
-            }),
+            parameters: {
+                let mut parameters = parameters(spec, &info, &data, scheme, checked.model.as_ref());
+                parameters[SETTINGS_HASH_KEY] = serde_json::json!(settings_hash);
+                parameters
+            },
             seed: spec.seed,
             repeats: spec.repeats,
             folds: folds.first().map_or(0, |f| f.k),
@@ -422,6 +541,7 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
             scheme,
             record,
             folds,
+            unseen,
         });
     }
 
@@ -543,6 +663,7 @@ fn fit_and_write(
         scheme,
         record,
         folds,
+        unseen,
     } in planned
     {
         let plan = Plan {
@@ -553,10 +674,16 @@ fn fit_and_write(
             exclusion_radius: spec.exclusion_radius,
         };
         let run_folds: u64 = folds.iter().map(|f| u64::from(f.k)).sum();
-        let outcome = fit_and_score(data, &plan, folds);
+        let outcome = if spec.assign_only {
+            Ok(assigned(data, checked.model.family(), folds))
+        } else {
+            fit_and_score(data, &plan, folds)
+        };
         folds_done += run_folds;
         progress.update(folds_done);
-        outcomes.push(outcome?);
+        let mut outcome = outcome?;
+        outcome.notes.extend(unseen);
+        outcomes.push(outcome);
         descriptions.push(scheme.describe(&|value| info.length(value)));
         records.push(record);
     }
@@ -568,7 +695,9 @@ fn fit_and_write(
         "validated"
     );
     let clock = std::time::Instant::now();
-    attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
+    if !spec.assign_only {
+        attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
+    }
     tracing::info!(
         phase = "diagnostics",
         elapsed_ms = clock.elapsed().as_millis() as u64,
@@ -578,7 +707,15 @@ fn fit_and_write(
     let finished: Vec<FinishedRun<'_>> = records
         .iter()
         .zip(&outcomes)
-        .map(|(record, outcome)| FinishedRun { record, outcome })
+        .map(|(record, outcome)| FinishedRun {
+            record,
+            outcome,
+            stage: if spec.assign_only {
+                Stage::Assigned
+            } else {
+                Stage::Complete
+            },
+        })
         .collect();
     let rows: u64 = finished
         .iter()
@@ -595,7 +732,7 @@ fn fit_and_write(
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "wrote results"
     );
-    Ok(Summary::new(
+    let summary = Summary::new(
         info,
         data,
         &records,
@@ -604,7 +741,55 @@ fn fit_and_write(
         &checked.model.describe(),
         spec.exclusion_radius,
         report,
-    ))
+    );
+    Ok(match (spec.assign_only, checked.model.uses_features()) {
+        (true, _) => summary.assigned(),
+        (false, false) => summary.location_only(),
+        (false, true) => summary,
+    })
+}
+
+/// What `runs.parameters` records: the scheme's and the model's options, the
+/// exclusion radius, the unseen-level policy when there are text features,
+/// and for `--assign-only` how to read the source again (`assignment`: the
+/// source without its connection string, the columns, the distance SRID), so
+/// `geofold score` reads the same units.
+fn parameters(
+    spec: &RunSpec,
+    info: &SourceInfo,
+    data: &Dataset,
+    scheme: &dyn FoldScheme,
+    model: &dyn crate::core::models::Model,
+) -> serde_json::Value {
+    let mut parameters = serde_json::json!({
+        "scheme": scheme.parameters(),
+        "model": model.parameters(),
+        "exclusion-radius": spec.exclusion_radius,
+        GATES_KEY: spec.gates,
+        BASELINE_RUNS_KEY: spec.baseline_runs,
+    });
+    if !data.categorical.is_empty() {
+        parameters["unseen-levels"] = serde_json::json!(spec.unseen_levels);
+    }
+    if spec.assign_only {
+        let source = match &spec.source {
+            SourceRef::Postgis { .. } => SourceRef::Postgis {
+                db: None,
+                table: info.table.clone(),
+            },
+            SourceRef::Gpkg { file, .. } => SourceRef::Gpkg {
+                file: file.canonicalize().unwrap_or_else(|_| file.clone()),
+                layer: Some(info.qualified_table.clone()),
+            },
+        };
+        parameters["assignment"] = serde_json::json!({
+            "source": source,
+            "columns": spec.columns,
+            "distance_srid": spec.distance_srid,
+            "strict": spec.strict,
+        });
+    }
+    parameters
 }
 
 /// A block size or exclusion radius below this share of the residual
@@ -645,7 +830,7 @@ fn scale_warnings(
 /// Moran's I of each run's held-out residuals, with the same weights for
 /// every run of the invocation; a run whose statistic cannot be computed
 /// (constant or missing residuals) gets a warning instead.
-fn attach_held_out_moran(
+pub(crate) fn attach_held_out_moran(
     outcomes: &mut [RunOutcome],
     data: &Dataset,
     rule: &crate::spec::WeightsRule,

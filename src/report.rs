@@ -3,6 +3,12 @@
 //! Both come from one [`Summary`], built from the core's outcomes and the
 //! store's report, so the text and the JSON never disagree. Folds and
 //! repetitions are numbered from 1, as in the tables.
+//!
+//! Every run shows its scores beside the training-mean (intercept-only)
+//! baseline on the same folds, each fitted term's spread across folds (how
+//! stable the fitted relationship is across space), and the counts of
+//! predictions made by a fallback rule. A run made with `--assign-only`
+//! shows its folds and the next step instead of scores.
 
 use std::fmt::Write as _;
 
@@ -10,10 +16,15 @@ use serde::Serialize;
 
 use crate::adapters::{SourceInfo, StoreReport};
 use crate::core::diagnostics::held_out::HeldOutMoran;
-use crate::core::metrics::{score_def, Better, Scores, Spread};
+use crate::core::metrics::{score_def, Better, Scores, Spread, THRESHOLD};
 use crate::core::units::{Dataset, Skipped};
 use crate::core::validate::RunOutcome;
 use crate::results::rows::RunRecord;
+
+mod terms;
+
+use terms::term_spreads;
+pub use terms::TermSpread;
 
 /// Version of the `--json` document layout.
 pub const JSON_SCHEMA_VERSION: u32 = 2;
@@ -75,6 +86,11 @@ pub struct RunSummary {
     pub held_out_moran: Option<HeldOutMoran>,
     /// Per fold and repetition.
     pub folds: Vec<FoldSummary>,
+    /// Each fitted term's spread over all folds of all repetitions.
+    pub coefficients: Vec<TermSpread>,
+    /// Held-out predictions made by a fallback rule or with all-zero
+    /// indicators: `(what, units)`.
+    pub notes: Vec<(String, usize)>,
 }
 
 /// How much more optimistic the random folds were than the spatial ones.
@@ -121,6 +137,11 @@ pub struct Summary {
     pub runs: Vec<RunSummary>,
     /// Spatial versus random, when both ran.
     pub comparison: Option<Comparison>,
+    /// True for a run made with `--assign-only`: folds recorded, no fit.
+    pub assign_only: bool,
+    /// False for a model that uses location only (the features were read
+    /// so that it validates the same units).
+    pub features_used: bool,
     /// Where the results went.
     pub results: StoreReport,
     /// The drift gates, judged on the stored scores (empty without gates).
@@ -185,6 +206,8 @@ impl Summary {
                                 })
                         })
                         .collect(),
+                    coefficients: term_spreads(outcome),
+                    notes: outcome.notes.clone(),
                 }
             })
             .collect();
@@ -223,9 +246,25 @@ impl Summary {
                 .unwrap_or_default(),
             runs,
             comparison,
+            assign_only: false,
+            features_used: true,
             results,
             gates: Vec::new(),
         }
+    }
+
+    /// The summary of a model that uses location only.
+    pub fn location_only(mut self) -> Summary {
+        self.features_used = false;
+        self
+    }
+
+    /// The summary of a run made with `--assign-only` (status `assigned`).
+    pub fn assigned(mut self) -> Summary {
+        self.status = "assigned";
+        self.assign_only = true;
+        self.comparison = None;
+        self
     }
 
     /// The human summary.
@@ -237,13 +276,25 @@ impl Summary {
             "job {}: {} units used of {} rows read from {} ({})",
             self.job, self.units_used, self.units_read, source.table, source.store
         );
-        let _ = writeln!(
-            out,
-            "validated: {} predicted from {} with {}",
-            source.target_column,
-            source.feature_columns.join(", "),
-            self.model
-        );
+        let features = source.feature_columns.join(", ");
+        let _ = match (self.assign_only, self.features_used) {
+            (true, _) => writeln!(
+                out,
+                "folds assigned: {} to be predicted from {features} by {}",
+                source.target_column, self.model
+            ),
+            (false, true) => writeln!(
+                out,
+                "validated: {} predicted from {features} with {}",
+                source.target_column, self.model
+            ),
+            (false, false) => writeln!(
+                out,
+                "validated: {} predicted from location with {} ({features} read only so that the same units are \
+                 validated as by models that use them)",
+                source.target_column, self.model
+            ),
+        };
         if let Some(radius) = self.exclusion_radius {
             let _ = writeln!(
                 out,
@@ -273,7 +324,11 @@ impl Summary {
             }
         }
         for run in &self.runs {
-            self.run_text(&mut out, run);
+            if self.assign_only {
+                self.assigned_text(&mut out, run);
+            } else {
+                self.run_text(&mut out, run);
+            }
         }
         if let Some(c) = &self.comparison {
             let _ = writeln!(out);
@@ -318,6 +373,39 @@ impl Summary {
              domain judgment, local rules or licensed practice."
         );
         out
+    }
+
+    fn assigned_text(&self, out: &mut String, run: &RunSummary) {
+        let _ = writeln!(out);
+        let _ = writeln!(
+            out,
+            "{} run {} ({}): folds assigned for a model fitted outside geofold, seed {}, {} repetition(s)",
+            run.scheme, run.run_id, run.role, run.seed, run.repeats
+        );
+        let _ = writeln!(out, "  {}", run.scheme_described);
+        for warning in &run.warnings {
+            let _ = writeln!(out, "  warning: {warning}");
+        }
+        let _ = writeln!(
+            out,
+            "  {:>10} {:>5} {:>9} {:>8} {:>9}",
+            "repetition", "fold", "n_train", "n_test", "excluded"
+        );
+        for fold in run.folds.iter().take(30) {
+            let _ = writeln!(
+                out,
+                "  {:>10} {:>5} {:>9} {:>8} {:>9}",
+                fold.repetition, fold.fold, fold.n_train, fold.n_test, fold.n_excluded
+            );
+        }
+        let _ = writeln!(
+            out,
+            "  next: read each unit's fold from fold_members (run_id {}; units excluded from a fold's training \
+             set are in fold_exclusions), fit each fold on the units outside it, load the held-out predictions \
+             (unit_id, repetition, fold, predicted) into a table or layer, then run geofold score --run {} \
+             --predictions TABLE",
+            run.run_id, run.run_id
+        );
     }
 
     fn run_text(&self, out: &mut String, run: &RunSummary) {
@@ -422,6 +510,12 @@ impl Summary {
             "  training-mean baseline on the same folds: {}",
             baseline.join("  ")
         );
+        if names.contains(&"accuracy") {
+            let _ = writeln!(
+                out,
+                "  (binary: predictions are probabilities of 1; accuracy counts p >= {THRESHOLD} as 1)"
+            );
+        }
         let spread: Vec<String> = run
             .fold_spread
             .iter()
@@ -462,6 +556,10 @@ impl Summary {
                 }
             );
         }
+        for (note, units) in &run.notes {
+            let _ = writeln!(out, "  {units} held-out predictions: {note}");
+        }
+        terms::write_terms(out, &run.coefficients);
         if let Some(r2) = run.pooled.get("r2") {
             if r2 < 0.0 {
                 let _ = writeln!(
@@ -501,6 +599,11 @@ fn label(name: &str) -> String {
     match name {
         "r2" => "R²".into(),
         "bias" => "bias".into(),
+        "log_loss" => "log-loss".into(),
+        "brier" => "Brier".into(),
+        "roc_auc" => "AUC".into(),
+        "accuracy" => "accuracy".into(),
+        "poisson_deviance" => "deviance".into(),
         other => other.to_uppercase(),
     }
 }

@@ -14,7 +14,9 @@ use serde::{Deserialize, Serialize};
 use crate::adapters::sql::check_identifier;
 use crate::adapters::{check_job, ColumnSpec};
 use crate::core::folds::{build_scheme, FoldScheme};
-use crate::core::models::{build_model, Model};
+use crate::core::metrics::Family;
+use crate::core::models::design::UnseenPolicy;
+use crate::core::models::{build_model, external, Model};
 use crate::core::options::Options;
 use crate::core::validate::check_repeats;
 use crate::error::Error;
@@ -153,6 +155,14 @@ pub struct RunSpec {
     /// successful run.
     #[serde(default)]
     pub skip_unchanged: bool,
+    /// Record the folds only, for a model fitted elsewhere (`geofold score`
+    /// loads its predictions later); the model must be `external`.
+    #[serde(default)]
+    pub assign_only: bool,
+    /// What a held-out unit gets whose text feature has a level its fold's
+    /// training units never had.
+    #[serde(default)]
+    pub unseen_levels: UnseenPolicy,
 }
 
 fn default_baseline_runs() -> u32 {
@@ -259,6 +269,33 @@ impl RunSpec {
         residual_weights.for_points()?;
         let scheme = build_scheme(&self.scheme, &self.scheme_options)?;
         let model = build_model(&self.model, &self.model_options)?;
+        if let Some(exposure) = &self.columns.exposure {
+            if model.family() != Family::Count {
+                return Err(Error::Usage(format!(
+                    "--exposure-column {exposure} is for count models (--model poisson, or --family count); \
+                     --model {} predicts a {} target",
+                    model.name(),
+                    model.family().name()
+                )));
+            }
+        }
+        match (self.assign_only, model.name() == external::NAME) {
+            (true, false) => {
+                return Err(Error::Usage(format!(
+                    "--assign-only records folds for a model fitted outside geofold: leave out --model {} \
+                     (the run is recorded with model external) and give --family regression|binary|count",
+                    model.name()
+                )))
+            }
+            (false, true) => {
+                return Err(Error::Usage(
+                    "--model external is fitted outside geofold: record its folds with --assign-only, \
+                     then load its held-out predictions with geofold score"
+                        .into(),
+                ))
+            }
+            _ => {}
+        }
         for gate in &self.gates {
             gate.check(model.family())?;
         }
@@ -460,6 +497,8 @@ mod tests {
             gates: Vec::new(),
             baseline_runs: DEFAULT_BASELINE_RUNS,
             skip_unchanged: false,
+            assign_only: false,
+            unseen_levels: UnseenPolicy::Error,
         }
     }
 
@@ -541,5 +580,32 @@ mod tests {
                 .insert("folds".into(), 4_294_967_295u64.into());
         })
         .contains("--folds"));
+    }
+
+    #[test]
+    fn model_options_exposure_and_assign_only_are_checked() {
+        assert!(refused(|s| s.model = "ridge".into()).contains("--penalty"));
+        assert!(refused(|s| {
+            s.model = "ridge".into();
+            s.model_options.insert("penalty".into(), (-1.0).into());
+        })
+        .contains("--penalty"));
+        assert!(refused(|s| {
+            s.model_options.insert("neighbours".into(), 3.into());
+        })
+        .contains("--neighbours does not apply to --model ols"));
+        assert!(refused(|s| s.columns.exposure = Some("pop".into())).contains("count models"));
+        assert!(refused(|s| s.assign_only = true).contains("leave out --model"));
+        assert!(refused(|s| s.model = "external".into()).contains("--assign-only"));
+        let mut spec = spec();
+        spec.model = "poisson".into();
+        spec.columns.exposure = Some("pop".into());
+        assert!(spec.check().is_ok());
+        spec.model = "external".into();
+        spec.model_options.insert("family".into(), "count".into());
+        spec.assign_only = true;
+        assert!(spec.check().is_ok());
+        spec.model_options.insert("family".into(), "counts".into());
+        assert!(spec.check().is_err());
     }
 }

@@ -104,6 +104,16 @@ fn demo_with_no_arguments_writes_a_geopackage_gdal_opens() {
         ("jobs", layer("None", 0, None)),
     ]
     .into_iter()
+    .chain(
+        [
+            "inspections",
+            "diagnostics",
+            "semivariogram",
+            "variogram_fits",
+            "correlogram",
+        ]
+        .map(|table| (table, layer("None", count(table), None))),
+    )
     .map(|(name, info)| (name.to_string(), info))
     .collect();
     assert_eq!(gdal_layers(&file), expected);

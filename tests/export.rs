@@ -110,6 +110,25 @@ fn results_of_a_postgis_source_go_to_a_geopackage_through_export() {
         ("jobs", layer("None", 0, None)),
     ]
     .into_iter()
+    .chain([
+        // The runs' held-out residual Moran's I; the demo records no inspection.
+        (
+            "diagnostics",
+            layer(
+                "None",
+                psql(&format!(
+                    "SELECT count(*) FROM geofold_demo.diagnostics WHERE analysis_id IN ({ids})"
+                ))
+                .parse()
+                .unwrap(),
+                None,
+            ),
+        ),
+        ("inspections", layer("None", 0, None)),
+        ("semivariogram", layer("None", 0, None)),
+        ("variogram_fits", layer("None", 0, None)),
+        ("correlogram", layer("None", 0, None)),
+    ])
     .map(|(name, info)| (name.to_string(), info))
     .collect();
     assert_eq!(gdal_layers(&file), expected);

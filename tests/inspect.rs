@@ -287,6 +287,51 @@ fn columbus_in_postgis_matches_esda_and_spreg() {
             [num(f[2]), num(f[3]), num(f[4]), num(f[5]), num(f[6])],
         );
     }
+    // A job's inspections travel with its runs through export, and a second
+    // export into the same file keeps them once.
+    let job = format!("{schema}_columbus");
+    let file = work.path("exported.gpkg");
+    for _ in 0..2 {
+        let mut command = work.geofold();
+        command
+            .args([
+                "run",
+                "--target",
+                "CRIME",
+                "--features",
+                "INC,HOVAL",
+                "--assume-metres",
+            ])
+            .args([
+                "--db",
+                &common::db_uri(),
+                "--table",
+                &format!("{schema}.columbus"),
+            ])
+            .args(["--results-schema", &results, "--block-size", "2"]);
+        assert_eq!(code(&run(command)), 0);
+        let mut command = work.geofold();
+        command
+            .args([
+                "export",
+                "--db",
+                &common::db_uri(),
+                "--results-schema",
+                &results,
+            ])
+            .args(["--job", &job])
+            .arg("--to")
+            .arg(&file);
+        assert_eq!(code(&run(command)), 0);
+    }
+    let conn = rusqlite::Connection::open(&file).unwrap();
+    let count = |sql: &str| -> i64 { conn.query_row(sql, [], |r| r.get(0)).unwrap() };
+    assert_eq!(count("SELECT count(*) FROM inspections"), 2);
+    assert_eq!(count("SELECT count(*) FROM runs"), 2);
+    assert_eq!(
+        count("SELECT count(*) FROM diagnostics WHERE subject = 'held_out_residuals'"),
+        2
+    );
     psql_script(&format!(
         "DROP SCHEMA {schema} CASCADE; DROP SCHEMA {results} CASCADE;"
     ));

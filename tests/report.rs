@@ -1,10 +1,11 @@
 //! `geofold report`: one self-contained HTML file of a stored run, on
 //! PostGIS and on GeoPackage.
 //!
-//! - A run on PostGIS and the same run copied into a GeoPackage by `geofold
-//!   export` give byte-identical reports and maps: the export copies every row
-//!   and the unit geometries, the report is a pure function of them, and it
-//!   names no store (nothing legitimately differs).
+//! - A run on PostGIS (with an inspection of its job) and the same run copied
+//!   into a GeoPackage by `geofold export` give byte-identical reports and
+//!   maps: the export copies every row, the job's inspections and the unit
+//!   geometries, the report is a pure function of them, and it names no store
+//!   (nothing legitimately differs).
 //! - The report opens in headless Chromium with no console message
 //!   (`common/chromium.rs`); a screenshot of the demo's report shows the
 //!   fold colours of the palette and is kept for the README
@@ -68,6 +69,31 @@ fn units_stores(label: &str) -> Stores {
 #[test]
 fn a_postgis_run_and_its_geopackage_export_report_byte_for_byte_alike() {
     let stores = units_stores("report_same");
+    // An inspection of the job first: export carries the job's inspections.
+    let inspected = stores.workdir.run(
+        &[
+            &[
+                "inspect",
+                "--db",
+                &db_uri(),
+                "--table",
+                &format!("{}.units", stores.pg.source),
+                "--results-schema",
+                &stores.pg.results,
+            ][..],
+            UNITS_COLUMNS,
+            &[
+                "--job",
+                "units",
+                "--weights",
+                "knn:4",
+                "--permutations",
+                "99",
+            ],
+        ]
+        .concat(),
+    );
+    assert_eq!(code(&inspected), 0, "{}", common::stderr(&inspected));
     let pg = stores.run_one(Store::Postgis, &[UNITS_GRID, &["--also-random"]].concat());
     assert_eq!(pg.code(), 0, "{}", pg.stderr());
     let run = pg.run_id(0);
@@ -110,6 +136,7 @@ fn a_postgis_run_and_its_geopackage_export_report_byte_for_byte_alike() {
                 "scores",
                 "comparison",
                 "maps",
+                "coefficients",
                 "autocorrelation",
             ],
         );
@@ -140,15 +167,29 @@ fn a_postgis_run_and_its_geopackage_export_report_byte_for_byte_alike() {
         ))
         .parse()
         .unwrap();
+    // Each term's mean estimate over the folds, from the stored coefficients (psql).
+    let mean_a: f64 = stores
+        .pg
+        .query(&format!(
+            "SELECT avg(estimate) FROM {{r}}.coefficients WHERE run_id = '{run}' AND term = 'a'"
+        ))
+        .parse()
+        .unwrap();
     assert_contains(
         &page,
         &[
+            &format!(
+                "<td>a</td><td class=\"num\">3</td><td class=\"num\">{}</td>",
+                geofold::render::text::significant(mean_a, 4)
+            ),
             &format!(
                 "RMSE is {} mg/L",
                 geofold::render::text::significant(random_rmse, 4)
             ),
             "square blocks of 200 m",
             "Moran's I of the held-out residuals",
+            "Semivariogram of the residuals",
+            "Correlogram of the residuals",
         ],
     );
     let dom = dom_without_console_errors(&workdir.path("pg.html"));

@@ -301,7 +301,7 @@ fn a_version_1_postgis_schema_is_upgraded_in_place_by_the_next_run() {
 
     assert_eq!(
         scratch.query("SELECT string_agg(version::text, ',' ORDER BY version), max(version) FROM {r}.schema_version"),
-        "1,2|2"
+        "1,3|3"
     );
     // The old tables are gone; the names that stay are views now.
     assert_eq!(
@@ -623,7 +623,7 @@ fn a_version_1_geopackage_is_upgraded_in_place_by_the_next_run() {
     let sql = |query: &str| gdal_rows(&file, query);
     assert_eq!(
         sql("SELECT group_concat(version), max(version) FROM (SELECT version FROM schema_version ORDER BY version)"),
-        [["1,2", "2"]]
+        [["1,3", "3"]]
     );
     // Old tables gone: the per-unit and score tables are views now (not
     // registered as layers), the blocks layers are dropped.

@@ -84,12 +84,16 @@ pub trait Store: ResultStore + RunHistory + ReadBack {}
 
 impl<T: ResultStore + RunHistory + ReadBack> Store for T {}
 
-/// The tables holding rows of runs, children first, `runs` last.
+/// The tables holding rows of runs (by `run_id`, or by `analysis_id` for a
+/// run's diagnostics), children first, `runs` last; delete by each table's
+/// [`TableDef::owner_column`].
 pub fn tables_by_run() -> Vec<&'static TableDef> {
     let mut tables: Vec<&'static TableDef> = TABLES
         .iter()
         .copied()
-        .filter(|t| t.name != RUNS.name && t.columns.iter().any(|c| c.name == "run_id"))
+        .filter(|t| {
+            t.name != RUNS.name && matches!(t.owner_column(), Some("run_id" | "analysis_id"))
+        })
         .collect();
     tables.reverse();
     tables.push(&RUNS);

@@ -80,6 +80,9 @@ pub struct SourceInfo {
     pub target_column: String,
     /// Feature columns actually used.
     pub feature_columns: Vec<String>,
+    /// Per feature column, whether it is text (a categorical feature,
+    /// one-hot encoded by the collector).
+    pub text_features: Vec<bool>,
     /// Group column actually used, if any.
     pub group_column: Option<String>,
     /// Exposure column actually used, if any.
@@ -224,6 +227,60 @@ pub struct StoredRun {
     pub scores: Vec<(String, String, Option<f64>)>,
 }
 
+/// A run made with `--assign-only`, read back for `geofold score`.
+pub struct AssignedRun {
+    /// Its id.
+    pub run_id: Uuid,
+    /// Its job.
+    pub job: String,
+    /// The primary run of a comparison run.
+    pub primary_run_id: Option<Uuid>,
+    /// `assigned` when it awaits predictions.
+    pub status: String,
+    /// Scheme.
+    pub scheme: String,
+    /// Model (`external`).
+    pub model: String,
+    /// Family name.
+    pub family: String,
+    /// Scheme and model options, and how to read the source again.
+    pub parameters: serde_json::Value,
+    /// Seed.
+    pub seed: i64,
+    /// Repetitions.
+    pub repeats: i64,
+    /// Folds.
+    pub folds: i64,
+    /// Fingerprint of the units when the folds were assigned.
+    pub input_fingerprint: Option<String>,
+    /// geofold version that assigned the folds.
+    pub tool_version: String,
+    /// `(unit_id, repetition, fold)` of each held-out row, 1-based.
+    pub assignments: Vec<(String, i64, i64)>,
+    /// `(repetition, fold, unit_id)` of each exclusion, 1-based.
+    pub exclusions: Vec<(i64, i64, String)>,
+    /// The fold regions of repetition 1 (for the job's map layers).
+    pub regions: Vec<gpkg::import::RegionLayerRow>,
+}
+
+/// One row of a table of held-out predictions loaded for `geofold score`;
+/// every value as found (None for NULL).
+#[derive(Debug, Clone, PartialEq)]
+pub struct PredictionRow {
+    /// The unit id, as text.
+    pub unit_id: Option<String>,
+    /// Repetition, from 1 (None also when the table has no such column).
+    pub repetition: Option<i64>,
+    /// Fold, from 1.
+    pub fold: Option<i64>,
+    /// The prediction.
+    pub predicted: Option<f64>,
+}
+
+/// The columns a predictions table must have (`repetition` may be left
+/// out when the run has one repetition).
+pub const PREDICTION_COLUMNS: [&str; 4] = ["unit_id", "repetition", "fold", "predicted"];
+
 /// A place where runs are recorded.
 pub trait ResultStore {
     /// Where it is, for messages: `schema geofold in user@host/db`, or a path.
@@ -279,6 +336,19 @@ pub trait ResultStore {
     /// # Errors
     /// An unknown or unsuccessful run.
     fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error>;
+    /// A run with its recorded folds (`held_out` rows) and exclusions, for
+    /// `geofold score`.
+    ///
+    /// # Errors
+    /// [`Error::NotFound`] for an unknown run; database or file errors.
+    fn assigned_run(&mut self, run_id: Uuid) -> Result<AssignedRun, Error>;
+    /// Every row of a table of held-out predictions in the store's database
+    /// or file (`schema.table`, or a GeoPackage table or layer).
+    ///
+    /// # Errors
+    /// [`Error::NotFound`] for a missing table or column; [`Error::Input`] for
+    /// columns of the wrong type.
+    fn read_predictions(&mut self, table: &str) -> Result<Vec<PredictionRow>, Error>;
     /// The job's latest inspection that found a residual autocorrelation
     /// range (call after [`ResultStore::prepare`]).
     ///

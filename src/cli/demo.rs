@@ -121,6 +121,8 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
         gates: Vec::new(),
         baseline_runs: crate::gates::DEFAULT_BASELINE_RUNS,
         skip_unchanged: false,
+        assign_only: false,
+        unseen_levels: Default::default(),
     };
     let summary = crate::pipeline::run(&spec)?;
     Ok((summary, hint))

@@ -21,7 +21,7 @@ use crate::adapters::{ResultStore, StoredRun};
 use crate::core::units::IdKind;
 use crate::error::{Error, Location};
 use crate::results::rows::Owned;
-use crate::results::{TableDef, JOBS, RUNS, TABLES};
+use crate::results::{TableDef, INSPECTIONS, JOBS, RUNS, TABLES};
 
 /// `geofold export`.
 #[derive(Debug, Clone, Args)]
@@ -242,19 +242,28 @@ fn copy(
         geometry_type,
         srs_id: source_srs.srs_id,
     };
+    // The job's inspections travel with it (their figures advise its runs).
+    let mut owners = ids.clone();
+    store.read_rows(
+        &INSPECTIONS,
+        "job",
+        std::slice::from_ref(&primary.job),
+        &mut |row| {
+            if let Owned::Text(id) = column(&INSPECTIONS, &row, "inspection_id") {
+                owners.push(id.clone());
+            }
+            Ok(())
+        },
+    )?;
     let rows_written = import(&args.to, &[source_srs, distance_srs], &ids, |sink| {
-        // Rows of the runs: by run_id, or by analysis_id for the figures a
-        // run stored about itself (its held-out residuals' Moran's I). Tables
-        // keyed by job alone (jobs, inspections) are not the run's.
+        // Every table but jobs, by what its rows belong to: runs (run_id),
+        // runs and inspections (analysis_id), inspections (inspection_id).
         for table in TABLES {
-            let Some(key) = ["run_id", "analysis_id"]
-                .into_iter()
-                .find(|key| table.columns.iter().any(|c| c.name == *key))
-            else {
+            let Some(key) = table.owner_column() else {
                 continue;
             };
             sink.table(table)?;
-            store.read_rows(table, key, &ids, &mut |row| sink.row(row))?;
+            store.read_rows(table, key, &owners, &mut |row| sink.row(row))?;
         }
         let mut units = Vec::new();
         store.unit_layer_rows(

@@ -16,6 +16,7 @@ pub mod prune;
 pub mod report;
 pub mod run;
 pub mod run_jobs;
+pub mod score;
 pub mod store;
 
 use clap::{Parser, Subcommand, ValueEnum};
@@ -28,8 +29,11 @@ EXIT STATUS
       the value, the baseline and the limit
   2   busy: another run of the same job is running (see --wait); nothing was done
   64  usage: bad options or arguments
-  65  bad input data: duplicate ids, a row skipped under --strict, an unfittable fold,
-      a geometry column mixing SRIDs, a results store geofold did not make
+  65  bad input data: duplicate ids, a row skipped under --strict, an unfittable fold
+      (constant or collinear feature, separation, no convergence), a target that does not
+      fit the model (not 0/1, a negative or non-integer count, a non-positive exposure), a
+      held-out level unseen in training, predictions for geofold score that miss, repeat or
+      misplace units, a geometry column mixing SRIDs, a results store geofold did not make
   66  the source table, schema, column, file or layer (or the job file) does not exist
   69  the database server is unreachable (after retrying one that is not up yet), or PostGIS
       is not installed
@@ -122,4 +126,7 @@ pub enum Command {
     Completions(completions::CompletionsArgs),
     /// Print the man page (or write every page into a directory).
     Man(man::ManArgs),
+    /// Score the held-out predictions of a model fitted elsewhere, for a run made with
+    /// geofold run --assign-only.
+    Score(score::ScoreArgs),
 }

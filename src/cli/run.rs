@@ -10,6 +10,8 @@ use std::path::PathBuf;
 use clap::Args;
 
 use crate::adapters::ColumnSpec;
+use crate::core::models::design::UnseenPolicy;
+use crate::core::models::external;
 use crate::core::options::Options;
 use crate::error::Error;
 use crate::pipeline::Outcome;
@@ -47,7 +49,8 @@ pub struct SourceArgs {
     /// Target column (numeric): what the model predicts.
     #[arg(long, value_name = "COLUMN")]
     pub target: Option<String>,
-    /// Feature columns (numeric), comma-separated.
+    /// Feature columns, comma-separated: numeric, or text for a categorical feature (one-hot
+    /// encoded with the levels of each fold's training units; see --unseen-levels).
     #[arg(long, value_name = "A,B,C", value_delimiter = ',')]
     pub features: Vec<String>,
     /// Group column (integer or text, e.g. a district code): every unit of a group is kept in
@@ -98,9 +101,42 @@ pub struct ValidationArgs {
     /// Also run random k-fold on the same rows, recorded as a comparison run, and report both.
     #[arg(long)]
     pub also_random: bool,
-    /// Model family (ols: ordinary least squares with intercept).
-    #[arg(long, default_value = "ols", value_name = "MODEL")]
-    pub model: String,
+    /// Model: ols (default; least squares), ridge (--penalty), logistic (0/1 target),
+    /// poisson (counts; --exposure-column), idw and knn (location only), mean (the training
+    /// mean). With --assign-only the model is fitted elsewhere (recorded as external).
+    #[arg(long, value_name = "MODEL")]
+    pub model: Option<String>,
+    /// Ridge penalty L ≥ 0 on the sum of squared slopes of features standardised on each
+    /// fold's training units (population SD), against the sum of squared residuals (not
+    /// divided by n); the intercept is not penalised (scikit-learn's Ridge(alpha=L) on z-scores).
+    #[arg(long, value_name = "L")]
+    pub penalty: Option<f64>,
+    /// Logistic and Poisson: iteration cap of iteratively reweighted least squares (default 100).
+    #[arg(long, value_name = "N")]
+    pub max_iterations: Option<u32>,
+    /// IDW: distance exponent, weights 1/d^P (default 2).
+    #[arg(long, value_name = "P")]
+    pub power: Option<f64>,
+    /// IDW and kNN: the number of nearest training units used.
+    #[arg(long, value_name = "K")]
+    pub neighbours: Option<u32>,
+    /// IDW: use the training units within this distance (CRS units); units with none get the
+    /// training mean, counted in the summary.
+    #[arg(long, value_name = "LENGTH")]
+    pub radius: Option<f64>,
+    /// idw, knn, mean and --assign-only: the kind of target, which decides the scores:
+    /// regression (default), binary (0/1, predictions are probabilities) or count.
+    #[arg(long, value_name = "FAMILY")]
+    pub family: Option<String>,
+    /// Text features: a held-out unit whose level its fold's training units never had is an
+    /// error (error, the default) or gets all-zero indicators, i.e. the fold's reference level,
+    /// counted in the summary (zero).
+    #[arg(long, value_name = "POLICY", default_value = "error")]
+    pub unseen_levels: String,
+    /// Record the run's folds, exclusions and regions without fitting (status assigned), for
+    /// a model fitted outside geofold; load its held-out predictions with geofold score.
+    #[arg(long)]
+    pub assign_only: bool,
     /// Weights of the Moran's I stored for each run's held-out residuals: knn:K (the K
     /// nearest units) or band:DISTANCE (units within DISTANCE, CRS units); row-standardised.
     #[arg(long, value_name = "RULE", default_value = "knn:8")]
@@ -270,6 +306,37 @@ impl RunArgs {
         if let Some(folds) = v.folds {
             scheme_options.insert("folds".into(), folds.into());
         }
+        let mut model_options = Options::new();
+        let numbers = [
+            ("penalty", v.penalty),
+            ("power", v.power),
+            ("radius", v.radius),
+        ];
+        for (name, value) in numbers {
+            if let Some(value) = value {
+                model_options.insert(name.into(), serde_json::json!(value));
+            }
+        }
+        if let Some(iterations) = v.max_iterations {
+            model_options.insert("max-iterations".into(), iterations.into());
+        }
+        if let Some(neighbours) = v.neighbours {
+            model_options.insert("neighbours".into(), neighbours.into());
+        }
+        if let Some(family) = &v.family {
+            model_options.insert("family".into(), family.trim().into());
+        }
+        let unseen_levels = UnseenPolicy::from_name(v.unseen_levels.trim()).ok_or_else(|| {
+            Error::Usage(format!(
+                "--unseen-levels {:?}: the policy is error or zero",
+                v.unseen_levels
+            ))
+        })?;
+        let model = match (&v.model, v.assign_only) {
+            (Some(model), _) => model.trim().to_string(),
+            (None, true) => external::NAME.to_string(),
+            (None, false) => "ols".to_string(),
+        };
         Ok(RunSpec {
             source,
             columns: self.source.columns()?,
@@ -278,8 +345,8 @@ impl RunArgs {
             strict: self.source.strict,
             scheme: v.scheme.clone(),
             scheme_options,
-            model: v.model.clone(),
-            model_options: Options::new(),
+            model,
+            model_options,
             exclusion_radius: v.exclusion_radius,
             repeats: v.repeats,
             seed: v.seed,
@@ -295,6 +362,8 @@ impl RunArgs {
             gates: crate::gates::parse_all(&self.schedule.gate)?,
             baseline_runs: self.schedule.baseline_runs,
             skip_unchanged: self.schedule.skip_unchanged,
+            assign_only: v.assign_only,
+            unseen_levels,
         })
     }
 }

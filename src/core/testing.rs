@@ -22,6 +22,7 @@ pub fn points_dataset(points: &[[f64; 2]]) -> Dataset {
         skipped: Skipped::default(),
         groups: None,
         exposure: None,
+        categorical: Vec::new(),
     }
 }
 
@@ -49,4 +50,53 @@ impl Points {
             prediction_points: None,
         }
     }
+}
+
+/// A dataset from feature rows (`names` in column order), targets and points;
+/// ids 1.. in row order.
+pub fn table_dataset(
+    names: &[&str],
+    rows: &[Vec<f64>],
+    target: &[f64],
+    points: &[[f64; 2]],
+) -> Dataset {
+    Dataset {
+        ids: (1..=target.len() as i64).map(UnitId::Int).collect(),
+        points: points.to_vec(),
+        target: target.to_vec(),
+        features: rows.iter().flatten().copied().collect(),
+        feature_names: names.iter().map(|n| n.to_string()).collect(),
+        id_kind: IdKind::Integer,
+        geometry_kinds: GeometryKinds::default(),
+        rows_read: target.len() as u64,
+        skipped: Skipped::default(),
+        groups: None,
+        exposure: None,
+        categorical: Vec::new(),
+    }
+}
+
+/// The Columbus neighbourhoods (Anselin 1988, as shipped in libpysal 4.14.1;
+/// `tests/fixtures/columbus/README.md`): target CRIME, features INC and
+/// HOVAL, points the polygon centroids (as shapely's `centroid`, which the
+/// reference values of REFERENCES.md §2 use).
+pub fn columbus() -> Dataset {
+    use geo::Centroid;
+    let rows = crate::core::diagnostics::contiguity::fixture::columbus();
+    let points: Vec<[f64; 2]> = rows
+        .iter()
+        .map(|r| {
+            let c = r.polygon.centroid().expect("a centroid");
+            [c.x(), c.y()]
+        })
+        .collect();
+    table_dataset(
+        &["INC", "HOVAL"],
+        &rows
+            .iter()
+            .map(|r| vec![r.income, r.house_value])
+            .collect::<Vec<_>>(),
+        &rows.iter().map(|r| r.crime).collect::<Vec<_>>(),
+        &points,
+    )
 }

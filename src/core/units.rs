@@ -5,8 +5,17 @@
 //! or empty geometry, or a missing / non-finite target or feature, are skipped and
 //! counted by reason; duplicate ids are an error. The result is a [`Dataset`] in
 //! id order, so fold assignment does not depend on the row order of the source.
+//!
+//! # Text features
+//! A feature column of text is categorical: it becomes one 0/1 indicator
+//! column per level (the distinct values, in byte order), named
+//! `column=level`, at the column's place among the features ([`Categorical`]).
+//! Which levels a fold's model uses is decided per fold from its training
+//! units (`models::design`). A NULL text is a missing feature (the row is
+//! skipped); more than [`MAX_LEVELS`] levels is an error.
 
 use std::cmp::Ordering;
+use std::collections::HashMap;
 use std::fmt;
 
 use geo_types::Geometry;
@@ -15,6 +24,11 @@ use sha2::{Digest, Sha256};
 
 use crate::core::geometry::representative_point;
 use crate::error::{Error, Location};
+
+mod categorical;
+
+use categorical::one_hot;
+pub use categorical::{Categorical, MAX_LEVELS};
 
 /// A unit's id as it is in the source table: an integer or a text.
 #[derive(Debug, Clone, PartialEq, Eq, Hash)]
@@ -184,6 +198,8 @@ pub struct Dataset {
     pub groups: Option<Groups>,
     /// Each unit's exposure (e.g. a population at risk), when an exposure column was read.
     pub exposure: Option<Vec<f64>>,
+    /// The text features, one-hot encoded into `features` (empty when none).
+    pub categorical: Vec<Categorical>,
 }
 
 /// The group of each unit (e.g. a district code), as codes into sorted names.
@@ -197,14 +213,16 @@ pub struct Groups {
     pub codes: Vec<u32>,
 }
 
-/// The values of the extra columns of one row: a group and an exposure,
-/// each `None` when NULL (or not read).
+/// The values of the extra columns of one row: a group, an exposure and the
+/// text features, each `None` when NULL (or not read).
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Extras {
     /// The group value, as text.
     pub group: Option<String>,
     /// The exposure.
     pub exposure: Option<f64>,
+    /// The values of the text features, in feature order.
+    pub texts: Vec<Option<String>>,
 }
 
 /// Which geometry families the used units have, so writers can type their columns.
@@ -305,6 +323,10 @@ pub struct UnitCollector {
     groups: Vec<String>,
     exposure: Vec<f64>,
     row_counter: Option<std::sync::Arc<std::sync::atomic::AtomicU64>>,
+    /// Per feature, whether it is text.
+    text: Vec<bool>,
+    /// Per text feature, its levels in first-seen order (codes are positions).
+    levels: Vec<HashMap<String, u32>>,
 }
 
 impl UnitCollector {
@@ -315,6 +337,14 @@ impl UnitCollector {
         counter: std::sync::Arc<std::sync::atomic::AtomicU64>,
     ) -> UnitCollector {
         self.row_counter = Some(counter);
+        self
+    }
+
+    /// Marks which features are text columns (one flag per feature); their
+    /// values come in [`Extras::texts`].
+    pub fn with_text_features(mut self, text: &[bool]) -> UnitCollector {
+        self.text = text.to_vec();
+        self.levels = vec![HashMap::new(); text.iter().filter(|&&t| t).count()];
         self
     }
 
@@ -356,6 +386,8 @@ impl UnitCollector {
             groups: Vec::new(),
             exposure: Vec::new(),
             row_counter: None,
+            text: vec![false; feature_names.len()],
+            levels: Vec::new(),
         }
     }
 
@@ -429,10 +461,15 @@ impl UnitCollector {
                 return Ok(());
             }
         };
-        if let Some(index) = features
-            .iter()
-            .position(|value| !matches!(value, Some(v) if v.is_finite()))
-        {
+        let text = &self.text;
+        let mut texts = extras.texts.iter();
+        if let Some(index) = features.iter().enumerate().position(|(j, value)| {
+            if text.get(j).copied().unwrap_or(false) {
+                texts.next().is_none_or(Option::is_none)
+            } else {
+                !matches!(value, Some(v) if v.is_finite())
+            }
+        }) {
             let column = self.feature_names[index].clone();
             self.skip(
                 id,
@@ -480,8 +517,19 @@ impl UnitCollector {
             _ => self.geometry_kinds.other = true,
         }
         self.rows.push((id, point, target));
-        self.features
-            .extend(features.iter().map(|value| value.unwrap_or(f64::NAN)));
+        let mut texts = extras.texts.into_iter().flatten();
+        let mut k = 0;
+        for (j, value) in features.iter().enumerate() {
+            if self.text.get(j).copied().unwrap_or(false) {
+                let level = texts.next().unwrap_or_default();
+                let known = self.levels[k].len() as u32;
+                let code = *self.levels[k].entry(level).or_insert(known);
+                self.features.push(f64::from(code));
+                k += 1;
+            } else {
+                self.features.push(value.unwrap_or(f64::NAN));
+            }
+        }
         Ok(())
     }
 
@@ -566,18 +614,26 @@ impl UnitCollector {
         let exposure = self
             .exposure_column
             .map(|_| order.iter().map(|&index| self.exposure[index]).collect());
+        let (features, feature_names, categorical) = one_hot(
+            &self.table,
+            &self.feature_names,
+            &self.text,
+            self.levels,
+            features,
+        )?;
         Ok(Dataset {
             ids,
             points,
             target,
             features,
-            feature_names: self.feature_names,
+            feature_names,
             id_kind: self.id_kind.unwrap_or(IdKind::Integer),
             geometry_kinds: self.geometry_kinds,
             rows_read: self.rows_read,
             skipped: self.skipped,
             groups,
             exposure,
+            categorical,
         })
     }
 }

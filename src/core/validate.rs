@@ -12,9 +12,19 @@
 //! - Spread: mean and sample SD of the per-fold scores; with several
 //!   repetitions, also of the per-repetition pooled scores, so users see how
 //!   much a score depends on the seed.
-//! - Baseline: the same folds with the training mean as the prediction (the
-//!   mean of the target over each fold's training units), computed on the
-//!   side, so every score has a reference.
+//! - Baseline: the same folds with the family's intercept-only prediction
+//!   (the mean target of each fold's training units; for counts with an
+//!   exposure, the training rate `Σy/ΣE` times the unit's exposure), computed
+//!   on the side, so every score has a reference.
+//!
+//! # Fitting
+//! A family that shares work across folds ([`Model::fit_folds`]) fits them
+//! all at once; otherwise each fold is fitted, its held-out units predicted
+//! and the fit dropped, on the machine's cores, so at most one fit per core
+//! is alive (what keeps per-fold neighbour indexes of a million units in
+//! memory). The held-out predictions of a model fitted elsewhere come in
+//! through [`score_predictions`], and a run made with `--assign-only` is
+//! [`assigned`]: the same outcome with folds and no predictions.
 
 use serde::Serialize;
 
@@ -24,6 +34,7 @@ use crate::core::metrics::{spreads, Family, Scores, Spread};
 use crate::core::models::{FitError, Fitted, Model, TrainingSet};
 use crate::core::parallel::parallel_map;
 use crate::core::units::Dataset;
+use crate::core::units::UnitId;
 use crate::error::Error;
 
 /// Largest number of repetitions a run takes.
@@ -86,6 +97,9 @@ pub struct RunOutcome {
     pub repeat_spread: Option<Vec<(&'static str, Spread)>>,
     /// Pooled scores of the training-mean baseline on the same folds.
     pub baseline: Scores,
+    /// Held-out predictions made by a fallback rule or with all-zero
+    /// indicators, counted over all repetitions: `(what, units)`.
+    pub notes: Vec<(String, usize)>,
     /// Moran's I of the held-out residuals (set by the pipeline; None when
     /// it could not be computed, with a warning).
     pub held_out_moran: Option<HeldOutMoran>,
@@ -146,6 +160,23 @@ pub fn assign_folds(input: &SchemeInput<'_>, plan: &Plan<'_>) -> Result<Vec<Fold
     Ok(sets)
 }
 
+/// The held-out predictions of one fold and what its fit reported.
+struct FoldPredictions {
+    /// `(unit, prediction, note)`.
+    predictions: Vec<(u32, f64, Option<&'static str>)>,
+    coefficients: Vec<(String, f64)>,
+}
+
+/// One repetition's held-out predictions, before scoring.
+pub struct Predicted {
+    /// The folds.
+    pub folds: FoldSet,
+    /// Held-out prediction of each unit, in dataset order.
+    pub predicted: Vec<f64>,
+    /// Per fold, the fitted terms.
+    pub coefficients: Vec<Vec<(String, f64)>>,
+}
+
 /// Fits every fold of every repetition and scores the held-out predictions.
 ///
 /// # Errors
@@ -156,25 +187,57 @@ pub fn fit_and_score(
     plan: &Plan<'_>,
     sets: Vec<FoldSet>,
 ) -> Result<RunOutcome, Error> {
-    let family = plan.model.family();
     let mut repetitions = Vec::with_capacity(sets.len());
-    let mut baseline_pairs = Vec::with_capacity(data.len() * sets.len());
+    let mut notes: Vec<(String, usize)> = Vec::new();
     for (repetition, folds) in sets.into_iter().enumerate() {
-        let fits = fit_folds(data, plan.model, &folds, repetition as u32)?;
-        let test_units = folds.test_units();
+        let per_fold = predict_folds(data, plan.model, &folds, repetition as u32)?;
         let mut predicted = vec![f64::NAN; data.len()];
-        let means = training_means(data, &folds, &test_units);
-        let fold_results: Vec<FoldResult> = test_units
+        let mut coefficients = Vec::with_capacity(per_fold.len());
+        for fold in per_fold {
+            for (unit, value, note) in fold.predictions {
+                predicted[unit as usize] = value;
+                if let Some(note) = note {
+                    match notes.iter_mut().find(|(n, _)| n == note) {
+                        Some(entry) => entry.1 += 1,
+                        None => notes.push((note.to_string(), 1)),
+                    }
+                }
+            }
+            coefficients.push(fold.coefficients);
+        }
+        repetitions.push(Predicted {
+            folds,
+            predicted,
+            coefficients,
+        });
+    }
+    let mut outcome = score_predictions(data, plan.model.family(), repetitions);
+    outcome.notes = notes;
+    Ok(outcome)
+}
+
+/// Scores held-out predictions (from geofold's fits, or loaded from a model
+/// fitted elsewhere): per fold, pooled, spreads and the baseline.
+pub fn score_predictions(data: &Dataset, family: Family, predicted: Vec<Predicted>) -> RunOutcome {
+    let mut repetitions = Vec::with_capacity(predicted.len());
+    let mut baseline_pairs = Vec::with_capacity(data.len() * predicted.len());
+    for Predicted {
+        folds,
+        predicted,
+        coefficients,
+    } in predicted
+    {
+        let test_units = folds.test_units();
+        let baseline = Baseline::new(data, family, &folds, &test_units);
+        let fold_results = test_units
             .iter()
             .enumerate()
             .map(|(fold, units)| {
-                let fit = &fits[fold];
                 let mut pairs = Vec::with_capacity(units.len());
                 for &unit in units {
-                    let value = fit.predict(&data.view(unit as usize));
-                    predicted[unit as usize] = value;
-                    pairs.push((data.target[unit as usize], value));
-                    baseline_pairs.push((data.target[unit as usize], means[fold]));
+                    let observed = data.target[unit as usize];
+                    pairs.push((observed, predicted[unit as usize]));
+                    baseline_pairs.push((observed, baseline.predict(data, fold, unit)));
                 }
                 let n_excluded = folds.excluded_from(fold as u32).len();
                 FoldResult {
@@ -182,7 +245,7 @@ pub fn fit_and_score(
                     n_test: units.len(),
                     n_excluded,
                     scores: family.score(&pairs),
-                    coefficients: fit.coefficients(),
+                    coefficients: coefficients.get(fold).cloned().unwrap_or_default(),
                 }
             })
             .collect();
@@ -218,45 +281,113 @@ pub fn fit_and_score(
             .collect();
         spreads(family, per_repetition.iter())
     });
-    Ok(RunOutcome {
+    RunOutcome {
         family,
         repetitions,
         pooled,
         fold_spread,
         repeat_spread,
         baseline: family.score(&baseline_pairs),
+        notes: Vec::new(),
         held_out_moran: None,
-    })
+    }
 }
 
-/// The mean target over each fold's training units.
-fn training_means(data: &Dataset, folds: &FoldSet, test_units: &[Vec<u32>]) -> Vec<f64> {
-    let total: f64 = data.target.iter().sum();
-    test_units
-        .iter()
-        .enumerate()
-        .map(|(fold, units)| {
-            let excluded = folds.excluded_from(fold as u32);
-            let removed: f64 = units
+/// The outcome of a run made with `--assign-only`: its folds, with no
+/// predictions (NaN) and no scores.
+pub fn assigned(data: &Dataset, family: Family, sets: Vec<FoldSet>) -> RunOutcome {
+    let empty = family.score(&[]);
+    let repetitions: Vec<Repetition> = sets
+        .into_iter()
+        .map(|folds| {
+            let fold_results = folds
+                .test_units()
                 .iter()
-                .chain(excluded)
-                .map(|&unit| data.target[unit as usize])
-                .sum();
-            let count = data.len() - units.len() - excluded.len();
-            (total - removed) / count as f64
+                .enumerate()
+                .map(|(fold, units)| {
+                    let n_excluded = folds.excluded_from(fold as u32).len();
+                    FoldResult {
+                        n_train: data.len() - units.len() - n_excluded,
+                        n_test: units.len(),
+                        n_excluded,
+                        scores: empty.clone(),
+                        coefficients: Vec::new(),
+                    }
+                })
+                .collect();
+            Repetition {
+                folds,
+                predicted: vec![f64::NAN; data.len()],
+                fold_results,
+            }
         })
-        .collect()
+        .collect();
+    RunOutcome {
+        family,
+        repetitions,
+        pooled: empty.clone(),
+        fold_spread: Vec::new(),
+        repeat_spread: None,
+        baseline: empty,
+        notes: Vec::new(),
+        held_out_moran: None,
+    }
 }
 
-/// Fits every fold of one repetition: the model's own all-folds fit when it
-/// has one, else fold by fold on the machine's cores. When several folds
-/// fail, the error reported is the one of the lowest fold.
-fn fit_folds(
+/// The family's intercept-only prediction of each fold: the training sum
+/// of the target and the training count or exposure.
+struct Baseline {
+    /// Per fold: training mean, or training rate when `exposure`.
+    level: Vec<f64>,
+    exposure: bool,
+}
+
+impl Baseline {
+    fn new(data: &Dataset, family: Family, folds: &FoldSet, test_units: &[Vec<u32>]) -> Baseline {
+        let exposure = match (family, &data.exposure) {
+            (Family::Count, Some(e)) => Some(e),
+            _ => None,
+        };
+        let weight = |unit: u32| exposure.map_or(1.0, |e| e[unit as usize]);
+        let total: f64 = data.target.iter().sum();
+        let total_weight: f64 = (0..data.len() as u32).map(weight).sum();
+        let level = test_units
+            .iter()
+            .enumerate()
+            .map(|(fold, units)| {
+                let removed = units.iter().chain(folds.excluded_from(fold as u32));
+                let (mut sum, mut weights) = (0.0, 0.0);
+                for &unit in removed {
+                    sum += data.target[unit as usize];
+                    weights += weight(unit);
+                }
+                (total - sum) / (total_weight - weights)
+            })
+            .collect();
+        Baseline {
+            level,
+            exposure: exposure.is_some(),
+        }
+    }
+
+    fn predict(&self, data: &Dataset, fold: usize, unit: u32) -> f64 {
+        match (&data.exposure, self.exposure) {
+            (Some(e), true) => self.level[fold] * e[unit as usize],
+            _ => self.level[fold],
+        }
+    }
+}
+
+/// Fits every fold of one repetition and predicts its held-out units: the
+/// model's own all-folds fit when it has one, else fold by fold on the
+/// machine's cores (each fit dropped once its fold is predicted). When
+/// several folds fail, the error reported is the one of the lowest fold.
+fn predict_folds(
     data: &Dataset,
     model: &dyn Model,
     folds: &FoldSet,
     repetition: u32,
-) -> Result<Vec<Box<dyn Fitted>>, Error> {
+) -> Result<Vec<FoldPredictions>, Error> {
     let k = folds.k as usize;
     let test_units = folds.test_units();
     let needed = model.min_training_units(data.n_features());
@@ -282,8 +413,28 @@ fn fit_folds(
     if let Some(problem) = (0..k).find_map(|fold| too_few(fold).map(|p| (fold, p))) {
         return Err(fold_error(problem.0, problem.1));
     }
-    let results = match model.fit_folds(data, folds) {
-        Some(results) => results,
+    let predict = |fold: usize, fit: &dyn Fitted| -> Result<FoldPredictions, FitError> {
+        let mut predictions = Vec::with_capacity(test_units[fold].len());
+        for &unit in &test_units[fold] {
+            let (value, note) = fit.predict_with_note(&data.view(unit as usize));
+            if !value.is_finite() {
+                return Err(FitError::Problem(format!(
+                    "the prediction for unit {} is not a finite number",
+                    data.ids[unit as usize]
+                )));
+            }
+            predictions.push((unit, value, note));
+        }
+        Ok(FoldPredictions {
+            predictions,
+            coefficients: fit.coefficients(),
+        })
+    };
+    let results: Vec<Result<FoldPredictions, FitError>> = match model.fit_folds(data, folds) {
+        Some(fits) => parallel_map(k, |fold| match &fits[fold] {
+            Ok(fit) => predict(fold, fit.as_ref()),
+            Err(problem) => Err(problem.clone()),
+        }),
         None => parallel_map(k, |fold| {
             let excluded = folds.excluded_from(fold as u32);
             let rows: Vec<u32> = (0..data.len() as u32)
@@ -292,7 +443,8 @@ fn fit_folds(
                         && excluded.binary_search(&unit).is_err()
                 })
                 .collect();
-            model.fit(&TrainingSet { data, rows: &rows })
+            let fit = model.fit(&TrainingSet { data, rows: &rows })?;
+            predict(fold, fit.as_ref())
         }),
     };
     results
@@ -311,138 +463,45 @@ pub struct UnitSummary {
     pub rmse: f64,
     /// Mean over repetitions of |predicted − observed|.
     pub mae: f64,
+    /// Mean over repetitions of the unit's loss term (binary and count
+    /// families; see [`Family::loss`]).
+    pub mean_loss: Option<f64>,
 }
 
 /// The per-unit summary of unit `unit` over the repetitions of `outcome`.
 pub fn unit_summary(data: &Dataset, outcome: &RunOutcome, unit: usize) -> UnitSummary {
     let observed = data.target[unit];
     let count = outcome.repetitions.len() as f64;
-    let (mut sum, mut squares, mut absolute) = (0.0, 0.0, 0.0);
+    let (mut sum, mut squares, mut absolute, mut loss) = (0.0, 0.0, 0.0, 0.0);
     for repetition in &outcome.repetitions {
         let predicted = repetition.predicted[unit];
         sum += predicted;
         squares += (predicted - observed).powi(2);
         absolute += (predicted - observed).abs();
+        loss += outcome.family.loss(observed, predicted).unwrap_or(0.0);
     }
     UnitSummary {
         mean_predicted: sum / count,
         rmse: (squares / count).sqrt(),
         mae: absolute / count,
+        mean_loss: (outcome.family != Family::Regression).then_some(loss / count),
+    }
+}
+
+/// The ids of units, as text, for messages.
+pub fn id_list(data: &Dataset, units: &[u32], at_most: usize) -> String {
+    let shown: Vec<String> = units
+        .iter()
+        .take(at_most)
+        .map(|&u| UnitId::to_string(&data.ids[u as usize]))
+        .collect();
+    let more = units.len().saturating_sub(at_most);
+    if more > 0 {
+        format!("{} and {more} more", shown.join(", "))
+    } else {
+        shown.join(", ")
     }
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::core::folds::grid::{Grid, GridParams};
-    use crate::core::folds::random::Random;
-    use crate::core::models::ols::Ols;
-    use crate::core::testing::{points_dataset, Points};
-    use approx::assert_relative_eq;
-
-    fn lattice() -> Dataset {
-        points_dataset(
-            &(0..400)
-                .map(|i| [(i % 20) as f64, (i / 20) as f64])
-                .collect::<Vec<_>>(),
-        )
-    }
-
-    fn run(
-        data: &Dataset,
-        scheme: &dyn FoldScheme,
-        repeats: u32,
-        seed: u64,
-    ) -> Result<RunOutcome, Error> {
-        let points = Points::new(data.points.clone());
-        let plan = Plan {
-            scheme,
-            model: &Ols,
-            repeats,
-            seed,
-            exclusion_radius: None,
-        };
-        let sets = assign_folds(&points.input(), &plan)?;
-        fit_and_score(data, &plan, sets)
-    }
-
-    #[test]
-    fn every_unit_is_held_out_once_per_repetition() {
-        let data = lattice();
-        let outcome = run(&data, &Random::new(5).unwrap(), 3, 1).unwrap();
-        assert_eq!(outcome.repetitions.len(), 3);
-        for repetition in &outcome.repetitions {
-            assert!(repetition.predicted.iter().all(|v| v.is_finite()));
-            assert_eq!(repetition.fold_results.len(), 5);
-            for fold in &repetition.fold_results {
-                assert_eq!(fold.n_train + fold.n_test, 400);
-            }
-        }
-        assert_eq!(outcome.pooled.n, 1200);
-        assert!(outcome.repeat_spread.is_some());
-        assert_eq!(outcome.baseline.n, 1200);
-    }
-
-    #[test]
-    fn a_linear_field_is_predicted_exactly_except_for_y() {
-        // target = x + y, feature = x: the held-out residual is y minus the
-        // training mean of y, so pooled bias is small and R² is about 1 - var(y)/var(x+y) = 0.5.
-        let data = lattice();
-        let grid = Grid::new(GridParams {
-            block_size: 5.0,
-            grid_origin: [0.0, 0.0],
-            folds: 4,
-        })
-        .unwrap();
-        let outcome = run(&data, &grid, 1, 3).unwrap();
-        let r2 = outcome.pooled.get("r2").unwrap();
-        assert!(r2 > 0.3 && r2 < 0.6, "r2 = {r2}");
-        // The model beats the training mean, which ignores x.
-        assert!(outcome.pooled.get("rmse").unwrap() < outcome.baseline.get("rmse").unwrap());
-        let summary = unit_summary(&data, &outcome, 0);
-        assert_relative_eq!(summary.rmse, summary.mae, epsilon = 1e-12);
-    }
-
-    #[test]
-    fn a_fold_that_cannot_be_fitted_names_the_fold_and_the_feature() {
-        let data = points_dataset(&[[0.0, 0.0], [1.0, 5.0], [2.0, 1.0]]);
-        // Each training set has 2 units: enough for intercept + 1 feature.
-        assert!(run(&data, &Random::new(3).unwrap(), 1, 1).is_ok());
-        let data = points_dataset(&[[0.0, 0.0], [0.0, 5.0], [2.0, 1.0]]);
-        // Feature x is constant on the training units of the fold holding out unit 3.
-        let text = run(&data, &Random::new(3).unwrap(), 1, 1)
-            .unwrap_err()
-            .to_string();
-        assert!(
-            text.starts_with("cannot fit fold") && text.contains("feature x is constant"),
-            "{text}"
-        );
-    }
-
-    #[test]
-    fn the_baseline_is_the_training_mean() {
-        // Two folds of two units each; hand computation: fold 0 = units {0, 2}
-        // or another pair; whichever, each held-out unit's baseline is the mean
-        // of the other fold's two targets.
-        let data = points_dataset(&[[0.0, 0.0], [1.0, 0.0], [0.0, 3.0], [2.0, 2.0]]);
-        let points = Points::new(data.points.clone());
-        let plan = Plan {
-            scheme: &Random::new(2).unwrap(),
-            model: &Ols,
-            repeats: 1,
-            seed: 4,
-            exclusion_radius: None,
-        };
-        let sets = assign_folds(&points.input(), &plan).unwrap();
-        let folds = sets[0].clone();
-        let test = folds.test_units();
-        let means = training_means(&data, &folds, &test);
-        for (fold, units) in test.iter().enumerate() {
-            let other: Vec<f64> = (0..4)
-                .filter(|i| !units.contains(&(*i as u32)))
-                .map(|i| data.target[i])
-                .collect();
-            assert_relative_eq!(means[fold], other.iter().sum::<f64>() / other.len() as f64);
-        }
-    }
-}
+mod tests;

@@ -10,8 +10,9 @@ use crate::adapters::readback::UnitSource;
 use crate::error::{Error, Location};
 use crate::results::rows::Owned;
 use crate::results::{
-    TableDef, CORRELOGRAM, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES,
-    HELD_OUT, INSPECTIONS, RUNS, RUN_SCORE_VALUES, SEMIVARIOGRAM, UNIT_SUMMARIES, VARIOGRAM_FITS,
+    TableDef, COEFFICIENTS, CORRELOGRAM, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS,
+    FOLD_SCORE_VALUES, HELD_OUT, INSPECTIONS, RUNS, RUN_SCORE_VALUES, SEMIVARIOGRAM,
+    UNIT_SUMMARIES, VARIOGRAM_FITS,
 };
 
 /// Which run to read.
@@ -176,10 +177,13 @@ pub fn load(
         }
     }
     let diagnostics = moran_rows(store, &id)?;
-    let inspection = if reading.job {
-        latest_inspection(store, &run.job)?
+    let (inspection, coefficients) = if reading.job {
+        (
+            latest_inspection(store, &run.job)?,
+            coefficient_rows(store, &id)?,
+        )
     } else {
-        None
+        (None, Vec::new())
     };
     let mut stored = StoredRun {
         crs: store.crs(run.distance_srid)?,
@@ -192,12 +196,34 @@ pub fn load(
         geometry_origin: None,
         regions: Vec::new(),
         diagnostics,
+        coefficients,
         inspection,
     };
     if reading.units {
         read_units(store, &mut stored)?;
     }
     Ok(stored)
+}
+
+/// `coefficients` rows of a run, by repetition, fold and term.
+fn coefficient_rows(
+    store: &mut dyn Store,
+    run: &[String],
+) -> Result<Vec<(u32, u32, String, f64)>, Error> {
+    let mut found: Vec<(u32, u32, String, f64)> = rows(store, &COEFFICIENTS, "run_id", run)?
+        .iter()
+        .filter_map(|values| {
+            let row = Row::new(&COEFFICIENTS, values);
+            Some((
+                u32::try_from(row.int("repetition")?).ok()?,
+                u32::try_from(row.int("fold")?).ok()?,
+                row.text("term")?,
+                row.float("estimate")?,
+            ))
+        })
+        .collect();
+    found.sort_by(|a, b| (a.0, a.1, &a.2).cmp(&(b.0, b.1, &b.2)));
+    Ok(found)
 }
 
 /// `diagnostics` rows of an analysis (a run or an inspection).

@@ -312,6 +312,9 @@ pub struct StoredRun {
     pub crs: CrsFacts,
     /// Moran's I rows about the run itself (its held-out residuals).
     pub diagnostics: Vec<MoranRecord>,
+    /// Each fold's fitted terms: (repetition, fold, term, estimate), by
+    /// repetition, fold and term (read for the report).
+    pub coefficients: Vec<(u32, u32, String, f64)>,
     /// The job's latest inspection, if any.
     pub inspection: Option<InspectionRecord>,
 }

@@ -19,13 +19,13 @@ use super::{length, RunRecord, StoredRun};
 use crate::adapters::readback::CrsFacts;
 use crate::adapters::CrsKind;
 use crate::core::folds::build_scheme;
-use crate::core::metrics::{score_def, Better as ScoreBetter, ALL_SCORES};
+use crate::core::metrics::{score_def, Better as ScoreBetter, Family, ALL_SCORES};
 use crate::core::models::build_model;
 use crate::gates::{choose_baseline, evaluate, Gate as GateRule, Limit, Verdict};
 use crate::pipeline::{BASELINE_RUNS_KEY, GATES_KEY};
 use crate::render::report::input::{
-    Better, Comparison, Correlogram, CorrelogramBin, FittedVariogram, FoldScores, Gate,
-    HistoryPoint, ReportInput, ResidualMoran, RunFacts, Score, ScoreDefinition, ScoreHistory,
+    Better, Comparison, Correlogram, CorrelogramBin, FittedVariogram, FoldCoefficient, FoldScores,
+    Gate, HistoryPoint, ReportInput, ResidualMoran, RunFacts, Score, ScoreDefinition, ScoreHistory,
     ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin, VariogramModel,
 };
 
@@ -35,6 +35,10 @@ pub fn score_label(name: &str) -> String {
         "rmse" => "RMSE".to_string(),
         "mae" => "MAE".to_string(),
         "r2" => "R\u{00b2}".to_string(),
+        "log_loss" => "log-loss".to_string(),
+        "brier" => "Brier score".to_string(),
+        "roc_auc" => "ROC AUC".to_string(),
+        "poisson_deviance" => "Poisson deviance".to_string(),
         other => other.to_string(),
     }
 }
@@ -209,8 +213,9 @@ fn statistic(scores: &[(String, String, Option<f64>)], which: &str) -> Vec<Score
     found
 }
 
-/// The scores the run has, in the order of [`ALL_SCORES`] (the family's
-/// headline first), then any others.
+/// The scores the run has: its family's in the family's order (the headline
+/// first), then other known ones in the order of [`ALL_SCORES`], then any
+/// others.
 fn score_names(stored: &StoredRun) -> Vec<String> {
     let mut present: Vec<String> = stored
         .run_scores
@@ -228,11 +233,23 @@ fn score_names(stored: &StoredRun) -> Vec<String> {
         .collect();
     present.sort();
     present.dedup();
-    let mut names: Vec<String> = ALL_SCORES
+    // The family's own order (its headline first), then any other known score.
+    let family: Vec<&str> = Family::from_name(&stored.run.family)
+        .map(|f| f.scores().iter().map(|s| s.name).collect())
+        .unwrap_or_default();
+    let mut names: Vec<String> = family
         .iter()
-        .map(|s| s.name.to_string())
-        .filter(|name| present.contains(name))
+        .copied()
+        .chain(ALL_SCORES.iter().map(|s| s.name))
+        .filter(|name| present.iter().any(|p| p == name))
+        .map(str::to_string)
         .collect();
+    let mut seen = Vec::new();
+    names.retain(|n| {
+        let first = !seen.contains(n);
+        seen.push(n.clone());
+        first
+    });
     names.extend(present.into_iter().filter(|n| score_def(n).is_none()));
     names
 }
@@ -531,7 +548,16 @@ pub fn report_input(stored: &StoredRun, target_unit: &str) -> ReportInput {
         },
         scores: scores(stored, target_unit),
         comparison: comparison(stored),
-        coefficients: Vec::new(),
+        coefficients: stored
+            .coefficients
+            .iter()
+            .map(|(repetition, fold, term, value)| FoldCoefficient {
+                repetition: *repetition,
+                fold: *fold,
+                term: term.clone(),
+                value: *value,
+            })
+            .collect(),
         held_out_moran: held_out_moran(stored),
         semivariogram,
         correlogram,

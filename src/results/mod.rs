@@ -18,6 +18,19 @@
 //! family's scores need no new column; the views `fold_scores` and
 //! `run_scores` show one row per fold or run with the scores as columns.
 //!
+//! Per-unit errors in each family's own terms: for a binary or count model
+//! `held_out.loss` keeps the unit's log-loss or Poisson deviance term (NULL
+//! for regression). It is stored rather than derived in the views because
+//! it needs a logarithm, which SQLite (and so a GIS reading the GeoPackage
+//! with its own SQLite) does not have built in.
+//!
+//! # Runs whose model is fitted elsewhere
+//! A run made with `--assign-only` has status `assigned` and stores its
+//! folds as `held_out` rows with `predicted` NULL (so `fold_members` lists
+//! them with no extra table), its `folds`, regions and exclusions, and no
+//! scores. `geofold score` replaces those rows by the scored ones, writes
+//! the scores and marks it `succeeded`, in one transaction.
+//!
 //! # Unit ids
 //! `unit_id` is text in the shared tables, so one store holds jobs whose
 //! sources have integer or text ids; each job's map view or layer carries the
@@ -95,6 +108,15 @@ pub struct TableDef {
 }
 
 impl TableDef {
+    /// The column naming what a row belongs to: `run_id` for a run's rows,
+    /// `analysis_id` for diagnostics of a run or an inspection,
+    /// `inspection_id` for an inspection; None for `jobs`.
+    pub fn owner_column(&self) -> Option<&'static str> {
+        ["run_id", "analysis_id", "inspection_id"]
+            .into_iter()
+            .find(|name| self.columns.iter().any(|c| c.name == *name))
+    }
+
     /// The column names, comma-separated.
     pub fn column_list(&self) -> String {
         self.columns
@@ -148,7 +170,11 @@ pub const RUNS: TableDef = TableDef {
             RunId,
             "for a comparison run (random folds on the same rows), the run it accompanies",
         ),
-        col("status", Text, "running, succeeded or failed"),
+        col(
+            "status",
+            Text,
+            "running, assigned (folds recorded for a model fitted elsewhere), succeeded or failed",
+        ),
         col("started_at", Timestamp, "when the run started"),
         opt("finished_at", Timestamp, "when it succeeded or failed"),
         col("source_store", Text, "postgis or gpkg"),
@@ -212,8 +238,17 @@ pub const HELD_OUT: TableDef = TableDef {
         col("repetition", Int, "repetition, from 1"),
         col("fold", Int, "the unit's test fold, from 1"),
         col("observed", Float, "the observed target"),
-        col("predicted", Float, "the held-out prediction"),
+        opt(
+            "predicted",
+            Float,
+            "the held-out prediction (a probability for binary models, an expected count for counts); NULL until geofold score for a run made with --assign-only",
+        ),
         col("unit_id", Text, "the source id, as text"),
+        opt(
+            "loss",
+            Float,
+            "the unit's term of the log-loss (binary) or Poisson deviance (count); NULL for regression",
+        ),
     ],
 };
 
@@ -232,6 +267,11 @@ pub const UNIT_SUMMARIES: TableDef = TableDef {
         col("rmse", Float, "root mean squared error over repetitions"),
         col("repetitions", Int, "the number of repetitions"),
         col("unit_id", Text, "the source id, as text"),
+        opt(
+            "mean_loss",
+            Float,
+            "mean over repetitions of the log-loss or deviance term (binary, count); NULL for regression",
+        ),
     ],
 };
 
@@ -281,6 +321,29 @@ pub const RUN_SCORE_VALUES: TableDef = TableDef {
         col("score", Text, "the score's name"),
         col("statistic", Text, "pooled, fold_mean, fold_sd, repeat_mean, repeat_sd or baseline"),
         opt("value", Float, "its value; NULL where undefined"),
+    ],
+};
+
+/// Fitted terms per fold.
+pub const COEFFICIENTS: TableDef = TableDef {
+    name: "coefficients",
+    about: "geofold: each fitted term of each fold, on the original scale of the features (how stable the fitted relationship is across space)",
+    keying: Keying::Primary(&["run_id", "repetition", "fold", "term"]),
+    belongs_to_run: true,
+    columns: &[
+        col("run_id", RunId, "the run"),
+        col("repetition", Int, "repetition, from 1"),
+        col("fold", Int, "fold, from 1"),
+        col(
+            "term",
+            Text,
+            "(intercept), a feature, or column=level for a level of a text feature",
+        ),
+        col(
+            "estimate",
+            Float,
+            "the estimate (per unit of the feature; log-odds for logistic, log rate for Poisson)",
+        ),
     ],
 };
 
@@ -472,6 +535,7 @@ pub const TABLES: &[&TableDef] = &[
     &FOLDS,
     &FOLD_SCORE_VALUES,
     &RUN_SCORE_VALUES,
+    &COEFFICIENTS,
     &FOLD_REGIONS,
     &FOLD_EXCLUSIONS,
     &JOBS,

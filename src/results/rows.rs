@@ -7,8 +7,8 @@ use serde::Serialize;
 use uuid::Uuid;
 
 use super::{
-    TableDef, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES, HELD_OUT,
-    RUN_SCORE_VALUES, UNIT_SUMMARIES,
+    TableDef, COEFFICIENTS, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES,
+    HELD_OUT, RUN_SCORE_VALUES, UNIT_SUMMARIES,
 };
 use crate::core::diagnostics::moran::{Inference, Moran};
 use crate::core::units::{Dataset, UnitId};
@@ -128,6 +128,59 @@ pub struct FinishedRun<'a> {
     pub record: &'a RunRecord,
     /// Its outcome.
     pub outcome: &'a RunOutcome,
+    /// What this write records.
+    pub stage: Stage,
+}
+
+/// What a write of a run records.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Stage {
+    /// Everything of a run fitted by geofold: status `succeeded`.
+    Complete,
+    /// The folds of a run whose model is fitted elsewhere (`--assign-only`):
+    /// `held_out` rows without predictions, folds, regions and exclusions;
+    /// status `assigned`.
+    Assigned,
+    /// The scores of an assigned run (`geofold score`): its `held_out` rows
+    /// replaced by scored ones, summaries and scores; status `succeeded`.
+    Scored,
+}
+
+impl Stage {
+    /// The run's status after the write.
+    pub fn status(self) -> &'static str {
+        match self {
+            Stage::Assigned => "assigned",
+            Stage::Complete | Stage::Scored => "succeeded",
+        }
+    }
+
+    /// Whether the write replaces the run's `held_out` rows.
+    pub fn replaces_held_out(self) -> bool {
+        self == Stage::Scored
+    }
+
+    /// Whether the job's map layers show the run after the write.
+    pub fn shows_on_maps(self) -> bool {
+        self != Stage::Assigned
+    }
+
+    /// Whether the write has `table`'s rows.
+    fn writes(self, table: &TableDef) -> bool {
+        let folds = [FOLDS.name, FOLD_REGIONS.name, FOLD_EXCLUSIONS.name];
+        let scores = [
+            UNIT_SUMMARIES.name,
+            FOLD_SCORE_VALUES.name,
+            RUN_SCORE_VALUES.name,
+            COEFFICIENTS.name,
+            DIAGNOSTICS.name,
+        ];
+        match self {
+            Stage::Complete => true,
+            Stage::Assigned => table.name == HELD_OUT.name || folds.contains(&table.name),
+            Stage::Scored => table.name == HELD_OUT.name || scores.contains(&table.name),
+        }
+    }
 }
 
 /// The rows of every results table for one finished run, in table order.
@@ -140,6 +193,7 @@ pub fn run_rows<'a>(
     let outcome = run.outcome;
     let mut folds = Vec::new();
     let mut scores = Vec::new();
+    let mut terms = Vec::new();
     let mut regions = Vec::new();
     let mut exclusions = Vec::new();
     let mut offset = 0usize;
@@ -148,6 +202,9 @@ pub fn run_rows<'a>(
             folds.push((repetition, fold));
             for (name, value) in &result.scores.values {
                 scores.push((repetition, fold, *name, *value));
+            }
+            for term in 0..result.coefficients.len() {
+                terms.push((repetition, fold, term));
             }
             exclusions.push((offset, repetition, fold));
             offset += rep.folds.excluded_from(fold as u32).len();
@@ -172,7 +229,7 @@ pub fn run_rows<'a>(
     for (name, value) in &outcome.baseline.values {
         run_scores.push((name, "baseline", *value));
     }
-    vec![
+    let all: Vec<Box<dyn RowSource<'a> + 'a>> = vec![
         Box::new(HeldOut {
             run_id,
             data,
@@ -247,6 +304,22 @@ pub fn run_rows<'a>(
                 ]);
             },
         }),
+        Box::new(Listed {
+            table: &COEFFICIENTS,
+            items: terms,
+            fill: move |&(repetition, fold, term): &(usize, usize, usize),
+                        out: &mut Vec<Value<'a>>| {
+                let (name, estimate) =
+                    &outcome.repetitions[repetition].fold_results[fold].coefficients[term];
+                out.extend([
+                    Value::Uuid(run_id),
+                    Value::Int(repetition as i64 + 1),
+                    Value::Int(fold as i64 + 1),
+                    Value::Str(name),
+                    Value::float(Some(*estimate)),
+                ]);
+            },
+        }),
         Box::new(Exclusions {
             run_id,
             data,
@@ -269,7 +342,10 @@ pub fn run_rows<'a>(
                 })
                 .collect(),
         ),
-    ]
+    ];
+    all.into_iter()
+        .filter(|rows| run.stage.writes(rows.table()))
+        .collect()
 }
 
 /// One Moran's I of `diagnostics`.
@@ -383,14 +459,21 @@ impl<'a> RowSource<'a> for HeldOut<'a> {
         let n = self.data.len();
         let (repetition, unit) = (row / n, row % n);
         let rep = &self.outcome.repetitions[repetition];
+        let observed = self.data.target[unit];
+        let predicted = rep.predicted[unit];
+        let loss = predicted
+            .is_finite()
+            .then(|| self.outcome.family.loss(observed, predicted))
+            .flatten();
         out.clear();
         out.extend([
             Value::Uuid(self.run_id),
             Value::Int(repetition as i64 + 1),
             Value::Int(i64::from(rep.folds.fold_of[unit]) + 1),
-            Value::Float(self.data.target[unit]),
-            Value::Float(rep.predicted[unit]),
+            Value::Float(observed),
+            Value::float(Some(predicted)),
             Value::Id(&self.data.ids[unit]),
+            Value::float(loss),
         ]);
     }
 }
@@ -427,6 +510,7 @@ impl<'a> RowSource<'a> for Summaries<'a> {
             Value::Float(summary.rmse),
             Value::Int(self.outcome.repetitions.len() as i64),
             Value::Id(&self.data.ids[unit]),
+            Value::float(summary.mean_loss),
         ]);
     }
 }

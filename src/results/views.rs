@@ -31,11 +31,11 @@ pub fn definitions(p: &str) -> Vec<(&'static str, &'static str, String)> {
     vec![
         (
             "predictions",
-            "geofold: held-out prediction of each unit per repetition (1-based); residual = observed - predicted",
+            "geofold: held-out prediction of each unit per repetition (1-based); residual = observed - predicted; loss = the unit's log-loss (binary) or Poisson deviance (count) term; predicted NULL for a run awaiting geofold score",
             format!(
                 "SELECT run_id, repetition, fold, unit_id, observed, predicted, \
                  observed - predicted AS residual, abs(observed - predicted) AS abs_error, \
-                 (observed - predicted) * (observed - predicted) AS squared_error \
+                 (observed - predicted) * (observed - predicted) AS squared_error, loss \
                  FROM {p}held_out"
             ),
         ),
@@ -46,15 +46,15 @@ pub fn definitions(p: &str) -> Vec<(&'static str, &'static str, String)> {
         ),
         (
             "unit_errors",
-            "geofold: per-unit errors over all repetitions of a run: predicted is the mean held-out prediction, residual = observed - predicted, abs_error the mean absolute error, rmse the RMSE over repetitions, fold the unit's fold in repetition 1",
+            "geofold: per-unit errors over all repetitions of a run: predicted is the mean held-out prediction (a probability for binary models), residual = observed - predicted, abs_error the mean absolute error, rmse the RMSE over repetitions, loss the mean log-loss (binary) or Poisson deviance (count) term, fold the unit's fold in repetition 1",
             format!(
                 "SELECT h.run_id, h.unit_id, h.fold, h.observed, h.predicted, \
                  h.observed - h.predicted AS residual, abs(h.observed - h.predicted) AS abs_error, \
-                 abs(h.observed - h.predicted) AS rmse, 1 AS repetitions \
+                 abs(h.observed - h.predicted) AS rmse, 1 AS repetitions, h.loss AS loss \
                  FROM {p}held_out h JOIN {p}runs r ON r.run_id = h.run_id WHERE r.repeats = 1 \
                  UNION ALL \
                  SELECT s.run_id, s.unit_id, s.fold, s.observed, s.mean_predicted, \
-                 s.observed - s.mean_predicted, s.mae, s.rmse, s.repetitions \
+                 s.observed - s.mean_predicted, s.mae, s.rmse, s.repetitions, s.mean_loss \
                  FROM {p}unit_summaries s"
             ),
         ),

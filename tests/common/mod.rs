@@ -160,16 +160,18 @@ pub fn kill_9(child: &mut Child) {
     );
 }
 
-/// The results tables that hold a run's rows (src/results/mod.rs), for
-/// checks that a failed run left none.
-pub const RUN_TABLES: &[&str] = &[
-    "held_out",
-    "unit_summaries",
-    "folds",
-    "fold_score_values",
-    "run_score_values",
-    "fold_regions",
-    "fold_exclusions",
+/// The results tables that hold a run's rows (src/results/mod.rs) and the
+/// column naming the run, for checks that a failed or removed run left none.
+pub const RUN_TABLES: &[(&str, &str)] = &[
+    ("held_out", "run_id"),
+    ("unit_summaries", "run_id"),
+    ("folds", "run_id"),
+    ("fold_score_values", "run_id"),
+    ("run_score_values", "run_id"),
+    ("fold_regions", "run_id"),
+    ("fold_exclusions", "run_id"),
+    // Each run's held-out residual Moran's I.
+    ("diagnostics", "analysis_id"),
 ];
 
 /// Two numbers read through different tools agree to 1e-12 relative (text

@@ -10,17 +10,6 @@ use std::process::{Command, Output};
 
 use crate::common::{db_uri, psql, psql_script, unique_name, Workdir};
 
-/// Tables that hold rows of a run (every results table with a run_id column).
-pub const RUN_TABLES: &[&str] = &[
-    "held_out",
-    "unit_summaries",
-    "folds",
-    "fold_score_values",
-    "run_score_values",
-    "fold_regions",
-    "fold_exclusions",
-];
-
 /// A test's source schema `s` (with the lattice table `s.plots`) and results
 /// schema `r`, dropped when the test passes (kept for a look when it fails).
 pub struct Case {
@@ -92,11 +81,11 @@ impl Case {
         if self.query("SELECT to_regclass('{r}.runs') IS NULL") == "t" {
             return 0;
         }
-        RUN_TABLES
+        crate::common::RUN_TABLES
             .iter()
-            .map(|table| {
+            .map(|(table, owner)| {
                 self.query(&format!(
-                    "SELECT count(*) FROM {{r}}.{table} WHERE run_id = '{run_id}'"
+                    "SELECT count(*) FROM {{r}}.{table} WHERE {owner} = '{run_id}'"
                 ))
                 .parse::<u64>()
                 .expect("a count")
@@ -109,9 +98,9 @@ impl Case {
         if self.query("SELECT to_regclass('{r}.runs') IS NULL") == "t" {
             return 0;
         }
-        RUN_TABLES
+        crate::common::RUN_TABLES
             .iter()
-            .map(|table| {
+            .map(|(table, _)| {
                 self.query(&format!("SELECT count(*) FROM {{r}}.{table}"))
                     .parse::<u64>()
                     .expect("a count")

@@ -442,7 +442,11 @@ fn a_failed_run_leaves_no_result_rows() {
     // GDAL as the writer: a constant feature makes every fold's design rank-deficient.
     ogrinfo_sql(&file, "UPDATE subcatchments SET elevation_m = 100");
     let count = |table: &str| gdal_sql(&file, &format!("SELECT count(*) FROM {table}"));
-    let tables = [RUN_TABLES, &["demo_nitrate", "demo_nitrate_regions"]].concat();
+    let tables: Vec<&str> = RUN_TABLES
+        .iter()
+        .map(|(table, _)| *table)
+        .chain(["demo_nitrate", "demo_nitrate_regions"])
+        .collect();
     let before: Vec<Vec<String>> = tables.iter().map(|t| count(t)).collect();
     let layer_run = gdal_sql(&file, "SELECT DISTINCT run_id FROM demo_nitrate");
     let output = workdir.run(&demo_args(&["--block-size", "4000", "--also-random"]));

@@ -381,13 +381,18 @@ fn bad_columns_and_duplicate_ids_exit_65_naming_table_column_and_row() {
         "CREATE TABLE {s}.dupes AS SELECT * FROM {s}.units;
          INSERT INTO {s}.dupes SELECT id, target + 1, a, b, c, label, geom FROM {s}.units WHERE id = 7;",
     );
-    let text_feature = grid("{s}.units", "a,label", "200", "3");
+    // A text feature is categorical (tests/models_input.rs); a date is neither.
+    scratch.script("ALTER TABLE {s}.units ADD COLUMN surveyed date DEFAULT '2020-01-01';");
+    let date_feature = grid("{s}.units", "a,surveyed", "200", "3");
     refused(
         &scratch,
         &workdir,
-        &text_feature,
+        &date_feature,
         65,
-        &["{s}.units.label", "numeric"],
+        &[
+            "{s}.units.surveyed",
+            "numeric, or text for a categorical feature",
+        ],
     );
     let dupes = grid("{s}.dupes", "a,b", "200", "3");
     refused(
@@ -483,10 +488,10 @@ fn a_run_failing_while_writing_leaves_no_rows_and_the_view_keeps_the_last_succes
     let failed: Vec<&str> = failed.lines().collect();
     assert_eq!(failed.len(), 2, "the grid run and its random comparison");
     for run in failed {
-        for table in RUN_TABLES {
+        for (table, owner) in RUN_TABLES {
             assert_eq!(
                 scratch.query(&format!(
-                    "SELECT count(*) FROM {{r}}.{table} WHERE run_id = '{run}'"
+                    "SELECT count(*) FROM {{r}}.{table} WHERE {owner} = '{run}'"
                 )),
                 "0",
                 "{table} rows of failed run {run}"

@@ -100,8 +100,9 @@ impl RunHistory for GpkgStore {
             let mut rows = Vec::new();
             for table in tables_by_run() {
                 let mut delete = conn.prepare(&format!(
-                    "DELETE FROM {} WHERE run_id = ?1",
-                    quote_ident(table.name)
+                    "DELETE FROM {} WHERE {} = ?1",
+                    quote_ident(table.name),
+                    table.owner_column().unwrap_or("run_id")
                 ))?;
                 let mut removed = 0u64;
                 for id in &ids {

@@ -42,6 +42,8 @@ pub struct UnitLayerRow {
     pub rmse: f64,
     /// Repetitions.
     pub repetitions: i64,
+    /// Mean log-loss or Poisson deviance term (binary and count models).
+    pub loss: Option<f64>,
     /// The unit's geometry as ISO WKB, when the source still has it.
     pub geometry: Option<Vec<u8>>,
 }
@@ -136,7 +138,7 @@ impl<'c> ImportSink<'c> {
             .conn
             .prepare(&format!(
                 "INSERT INTO main.{} (fid, unit_id, run_id, fold, observed, predicted, residual, abs_error, rmse,
-                    repetitions, geom) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11)",
+                    repetitions, loss, geom) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
                 quote(&table.name)
             ))
             .map_err(at)?;
@@ -166,6 +168,7 @@ impl<'c> ImportSink<'c> {
                     row.abs_error,
                     row.rmse,
                     row.repetitions,
+                    row.loss,
                     geometry
                 ])
                 .map_err(at)?;

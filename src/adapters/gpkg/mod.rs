@@ -52,6 +52,7 @@ mod readback;
 mod rows;
 mod rtree;
 pub mod schema;
+pub mod scoring;
 mod store;
 pub mod tables;
 

@@ -210,14 +210,21 @@ impl GpkgSource {
             ));
             IdKind::Integer
         };
+        // A TEXT feature is categorical; the target and exposure must be numbers.
+        let text_features: Vec<bool> = feature_columns
+            .iter()
+            .map(|name| find(name).is_some_and(|c| is_text(&c.declared)))
+            .collect();
         for name in std::iter::once(&target_column)
             .chain(feature_columns.iter())
             .chain(exposure_column.iter())
         {
             if let Some(column) = find(name) {
                 let declared = base_type(&column.declared);
+                let text_feature = feature_columns.contains(name) && is_text(&column.declared);
                 if !INTEGER_TYPES.contains(&declared.as_str())
                     && !REAL_TYPES.contains(&declared.as_str())
+                    && !text_feature
                 {
                     problems.push((
                         location(name),
@@ -279,6 +286,7 @@ impl GpkgSource {
             geom_column,
             target_column,
             feature_columns,
+            text_features,
             group_column,
             exposure_column,
             id_kind,
@@ -476,10 +484,16 @@ fn produce(
         let id = reader
             .id(get(0)?)
             .map_err(|problem| Error::input(&info.table, Some(&info.id_column), None, problem))?;
+        let mut extras = Extras::default();
         for (index, name) in std::iter::once(&info.target_column)
             .chain(info.feature_columns.iter())
             .enumerate()
         {
+            if index > 0 && info.text_features[index - 1] {
+                extras.texts.push(text(get(2 + index)?));
+                batch.numbers.push(None);
+                continue;
+            }
             let value = number(get(2 + index)?).map_err(|problem| {
                 Error::input(&info.table, Some(name), Some(id.to_string()), problem)
             })?;
@@ -504,7 +518,6 @@ fn produce(
                 ))
             }
         };
-        let mut extras = Extras::default();
         // After the id, geometry, target, features and rowid.
         let mut next = 4 + info.feature_columns.len();
         if let Some(column) = &info.group_column {
@@ -646,7 +659,16 @@ impl<'a> RowReader<'a> {
         let geometry = self.checked_blob(get(1)?).err();
         let mut bad_numbers = Vec::new();
         for (index, name) in numbers.enumerate() {
-            if let Err(problem) = number(get(2 + index)?) {
+            let value = get(2 + index)?;
+            let problem = if index > 0 && info.text_features[index - 1] {
+                match value {
+                    ValueRef::Blob(_) => Some(format!("{} in a text column", describe(value))),
+                    _ => None,
+                }
+            } else {
+                number(value).err()
+            };
+            if let Some(problem) = problem {
                 bad_numbers.push((name, problem));
             }
         }
@@ -682,6 +704,21 @@ impl<'a> RowReader<'a> {
             at(name, row_id.clone(), problem);
         }
         Ok(problems)
+    }
+}
+
+/// Whether a declared type holds text (a categorical feature).
+fn is_text(declared: &str) -> bool {
+    matches!(base_type(declared).as_str(), "TEXT" | "VARCHAR" | "CHAR")
+}
+
+/// A text value (numbers as SQLite prints them); NULL is missing.
+fn text(value: ValueRef<'_>) -> Option<String> {
+    match value {
+        ValueRef::Text(bytes) => Some(String::from_utf8_lossy(bytes).into_owned()),
+        ValueRef::Integer(value) => Some(value.to_string()),
+        ValueRef::Real(value) => Some(value.to_string()),
+        ValueRef::Null | ValueRef::Blob(_) => None,
     }
 }
 

@@ -156,8 +156,15 @@ impl<'c> Inserter<'c> {
 /// `INSERT INTO table (columns) VALUES (?, …), …` for `rows` rows.
 fn insert_sql(table: &TableDef, rows: usize) -> String {
     let one = format!("({})", vec!["?"; table.columns.len()].join(", "));
+    // An inspection and its figures are immutable records under their own
+    // id: copying a job's runs into a file that already holds its
+    // inspections (a second export) keeps the rows there.
+    let verb = match table.owner_column() {
+        Some("inspection_id" | "analysis_id") => "INSERT OR IGNORE",
+        _ => "INSERT",
+    };
     format!(
-        "INSERT INTO main.{} ({}) VALUES {}",
+        "{verb} INTO main.{} ({}) VALUES {}",
         quote(table.name),
         table.column_list(),
         vec![one; rows].join(", ")
@@ -253,7 +260,7 @@ pub(crate) fn unit_layer_table(
         key: "fid".into(),
         columns: format!(
             "unit_id {id_type} NOT NULL, run_id TEXT NOT NULL, fold INTEGER, observed DOUBLE, predicted DOUBLE, \
-             residual DOUBLE, abs_error DOUBLE, rmse DOUBLE, repetitions INTEGER"
+             residual DOUBLE, abs_error DOUBLE, rmse DOUBLE, repetitions INTEGER, loss DOUBLE"
         ),
         geometry_type: geometry_type.to_string(),
         geometry_not_null: false,
@@ -338,16 +345,17 @@ pub(crate) fn rewrite_job_layers(
     };
     let values = if units.table == "held_out" {
         "e.fold, e.observed, e.predicted, e.observed - e.predicted, abs(e.observed - e.predicted), \
-         abs(e.observed - e.predicted), 1"
+         abs(e.observed - e.predicted), 1, e.loss"
     } else {
-        "e.fold, e.observed, e.mean_predicted, e.observed - e.mean_predicted, e.mae, e.rmse, e.repetitions"
+        "e.fold, e.observed, e.mean_predicted, e.observed - e.mean_predicted, e.mae, e.rmse, e.repetitions, \
+         e.mean_loss"
     };
     // A skipped row may share its id with a used one: the first row with a
     // geometry is kept (INSERT OR IGNORE on the fid).
     conn.execute(
         &format!(
             "INSERT OR IGNORE INTO main.{layer}
-               (fid, unit_id, run_id, fold, observed, predicted, residual, abs_error, rmse, repetitions, geom)
+               (fid, unit_id, run_id, fold, observed, predicted, residual, abs_error, rmse, repetitions, loss, geom)
              SELECT e.fid - ?1 + 1, s.{id}, e.run_id, {values}, s.{geom}
              FROM main.{table} e JOIN {source} s ON {join}
              WHERE e.fid BETWEEN ?1 AND ?2 AND s.{geom} IS NOT NULL",

@@ -26,7 +26,8 @@ use super::rows::{insert_rows, job_descriptions, rewrite_job_layers, UnitRows};
 use super::schema::{self, Srs, TriggerSet};
 use super::{check_geopackage, file_error, open_file, sqlite_error, tables};
 use crate::adapters::{
-    add_count, ResultStore, SourceInfo, StoreReport, StoredInspection, StoredRun,
+    add_count, AssignedRun, PredictionRow, ResultStore, SourceInfo, StoreReport, StoredInspection,
+    StoredRun,
 };
 use crate::core::units::Dataset;
 use crate::error::{Error, FileProblem};
@@ -596,6 +597,14 @@ impl ResultStore for GpkgStore {
             .find(|run| run.run_id == run_id)
             .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
     }
+
+    fn assigned_run(&mut self, run_id: Uuid) -> Result<AssignedRun, Error> {
+        super::scoring::assigned_run(self.conn()?, &self.path, run_id)
+    }
+
+    fn read_predictions(&mut self, table: &str) -> Result<Vec<PredictionRow>, Error> {
+        super::scoring::read_predictions(self.conn()?, &self.path, table)
+    }
 }
 
 /// Rows written per table, and the job's layers.
@@ -619,6 +628,13 @@ fn write_runs(
     let mut layers = Vec::new();
     let skipped = data.skipped.counts_json().to_string();
     for run in runs {
+        if run.stage.replaces_held_out() {
+            tx.execute(
+                "DELETE FROM held_out WHERE run_id = ?1",
+                [run.record.run_id.to_string()],
+            )
+            .map_err(|e| sqlite_error(path, "replacing the run's fold assignments", &e))?;
+        }
         let mut unit_rows = None;
         for rows in run_rows(data, run, info.srid) {
             if rows.is_empty() {
@@ -636,7 +652,7 @@ fn write_runs(
         schema::refresh_extent(&tx, "fold_regions")
             .map_err(|e| sqlite_error(path, "updating the extent of fold_regions", &e))?;
         tx.execute(
-            "UPDATE runs SET status = 'succeeded', finished_at = strftime('%Y-%m-%dT%H:%M:%fZ', 'now'),
+            "UPDATE runs SET status = ?6, finished_at = strftime('%Y-%m-%dT%H:%M:%fZ', 'now'),
                 input_fingerprint = ?2, units_read = ?3, units_used = ?4, units_skipped = ?5
              WHERE run_id = ?1",
             params![
@@ -644,11 +660,12 @@ fn write_runs(
                 run.record.input_fingerprint,
                 data.rows_read as i64,
                 data.len() as i64,
-                skipped
+                skipped,
+                run.stage.status()
             ],
         )
         .map_err(|e| sqlite_error(path, "marking the run succeeded", &e))?;
-        if run.record.primary_run_id.is_none() {
+        if run.record.primary_run_id.is_none() && run.stage.shows_on_maps() {
             let units = unit_rows
                 .ok_or_else(|| Error::Internal("the primary run wrote no per-unit rows".into()))?;
             let regions = run

@@ -84,9 +84,15 @@ impl RunHistory for PostgisStore {
 
     fn delete_runs(&mut self, run_ids: &[Uuid], commit: bool) -> Result<Deleted, Error> {
         let runs = self.table("runs");
-        let tables: Vec<(String, String)> = tables_by_run()
+        let tables: Vec<(String, String, &str)> = tables_by_run()
             .iter()
-            .map(|t| (t.name.to_string(), self.table(t.name)))
+            .map(|t| {
+                (
+                    t.name.to_string(),
+                    self.table(t.name),
+                    t.owner_column().unwrap_or("run_id"),
+                )
+            })
             .collect();
         let action = format!("removing runs from schema {}", self.schema());
         let session = self.session();
@@ -111,12 +117,12 @@ impl RunHistory for PostgisStore {
                     .collect::<Result<_, _>>()?;
                 let mut rows = Vec::new();
                 let mut bytes: i64 = 0;
-                for (name, table) in &tables {
+                for (name, table, owner) in &tables {
                     let size: i64 = client
                         .query_one(
                             &format!(
                                 "SELECT coalesce(sum(pg_column_size(t.*)), 0)::int8 FROM {table} t \
-                                 WHERE run_id = ANY($1)"
+                                 WHERE {owner} = ANY($1)"
                             ),
                             &[&ids],
                         )
@@ -124,7 +130,7 @@ impl RunHistory for PostgisStore {
                         .try_get(0)?;
                     bytes += size;
                     let removed = client
-                        .execute(&format!("DELETE FROM {table} WHERE run_id = ANY($1)"), &[&ids])
+                        .execute(&format!("DELETE FROM {table} WHERE {owner} = ANY($1)"), &[&ids])
                         .await?;
                     rows.push((name.clone(), removed));
                 }

@@ -97,7 +97,7 @@ pub fn job_views(
         format!(
             "CREATE VIEW {unit_view} AS
              SELECT {fid} AS fid, s.{id} AS unit_id, e.run_id, e.fold, e.observed, e.predicted, e.residual,
-                    e.abs_error, e.rmse, e.repetitions, {geometry} AS geom
+                    e.abs_error, e.rmse, e.repetitions, e.loss, {geometry} AS geom
              FROM {unit_errors} e JOIN {source} s ON s.{id} = e.unit_id::{cast}
              WHERE e.run_id = {latest};
              COMMENT ON VIEW {unit_view} IS {comment};",
@@ -105,7 +105,8 @@ pub fn job_views(
             source = info.qualified_table,
             comment = quote_literal(&format!(
                 "geofold: per-unit held-out errors of the latest successful run of job {job}; key: fid; \
-                 residual = observed - predicted; fold: the unit's test fold in repetition 1"
+                 residual = observed - predicted; loss: the log-loss or Poisson deviance term of binary and count models; \
+                 fold: the unit's test fold in repetition 1"
             )),
         ),
     )];

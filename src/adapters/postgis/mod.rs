@@ -20,6 +20,7 @@ pub mod migrate;
 pub mod read;
 pub mod readback;
 pub mod reads;
+pub mod scoring;
 pub mod store;
 pub mod tls;
 

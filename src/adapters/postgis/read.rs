@@ -212,15 +212,27 @@ impl PostgisSource {
                 }
             }
         }
+        // A text feature is categorical; the target and exposure must be numbers.
+        let text_features: Vec<bool> = feature_columns
+            .iter()
+            .map(|name| find(name).is_some_and(|c| TEXT_TYPES.contains(&c.type_name.as_str())))
+            .collect();
         for name in std::iter::once(&target_column)
             .chain(feature_columns.iter())
             .chain(exposure_column.iter())
         {
             if let Some(column) = find(name) {
-                if !NUMERIC_TYPES.contains(&column.type_name.as_str()) {
+                let text_feature = feature_columns.contains(name)
+                    && TEXT_TYPES.contains(&column.type_name.as_str());
+                if !NUMERIC_TYPES.contains(&column.type_name.as_str()) && !text_feature {
+                    let allowed = if feature_columns.contains(name) {
+                        "numeric, or text for a categorical feature"
+                    } else {
+                        "numeric"
+                    };
                     problems.push((
                         location(name),
-                        format!("column has type {}; it must be numeric", column.formatted),
+                        format!("column has type {}; it must be {allowed}", column.formatted),
                     ));
                 }
             }
@@ -275,9 +287,15 @@ impl PostgisSource {
             }
             (None, _) => quote_ident(&geom_column),
         };
-        let numbers: Vec<String> = std::iter::once(&target_column)
-            .chain(feature_columns.iter())
-            .map(|name| format!("{}::float8", quote_ident(name)))
+        let numbers: Vec<String> = std::iter::once((&target_column, false))
+            .chain(feature_columns.iter().zip(text_features.iter().copied()))
+            .map(|(name, text)| {
+                format!(
+                    "{}::{}",
+                    quote_ident(name),
+                    if text { "text" } else { "float8" }
+                )
+            })
             .collect();
         let mut extras = String::new();
         if let Some(group) = &group_column {
@@ -299,6 +317,7 @@ impl PostgisSource {
             geom_column,
             target_column,
             feature_columns,
+            text_features,
             group_column,
             exposure_column,
             id_kind,
@@ -463,10 +482,20 @@ impl Source for PostgisSource {
                         ),
                     };
                     let number = |index: usize| fields[index].and_then(read_float8);
-                    values.clear();
-                    values.extend((0..n_features).map(|j| number(3 + j)));
-                    let mut next = 3 + n_features;
                     let mut extras = Extras::default();
+                    values.clear();
+                    for j in 0..n_features {
+                        if info.text_features[j] {
+                            values.push(None);
+                            extras.texts.push(
+                                fields[3 + j]
+                                    .map(|bytes| String::from_utf8_lossy(bytes).into_owned()),
+                            );
+                        } else {
+                            values.push(number(3 + j));
+                        }
+                    }
+                    let mut next = 3 + n_features;
                     if info.group_column.is_some() {
                         extras.group =
                             fields[next].map(|bytes| String::from_utf8_lossy(bytes).into_owned());

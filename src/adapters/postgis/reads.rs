@@ -160,7 +160,7 @@ impl PostgisStore {
         };
         let sql = format!(
             "SELECT {unit_id}, e.run_id::text, e.fold::int8, e.observed, e.predicted, e.residual, e.abs_error,
-                    e.rmse, e.repetitions::int8, ST_AsBinary(ST_Force2D({geometry}))
+                    e.rmse, e.repetitions::int8, ST_AsBinary(ST_Force2D({geometry})), e.loss
              FROM {schema}.unit_errors e JOIN {source} s ON s.{id} = e.unit_id::{cast}
              WHERE e.run_id = $1 ORDER BY e.unit_id",
             schema = quote_ident(self.schema()),
@@ -184,6 +184,7 @@ impl PostgisStore {
                 rmse: row.try_get(7).map_err(get)?,
                 repetitions: row.try_get(8).map_err(get)?,
                 geometry: row.try_get(9).map_err(get)?,
+                loss: row.try_get(10).map_err(get)?,
             })
         })
     }

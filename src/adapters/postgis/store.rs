@@ -23,12 +23,13 @@ use super::layers::job_views;
 use super::migrate::{lock_key, prepare_schema};
 use super::{database_error, quote_ident, Session};
 use crate::adapters::{
-    add_count, Layer, ResultStore, SourceInfo, StoreReport, StoredInspection, StoredRun,
+    add_count, AssignedRun, Layer, PredictionRow, ResultStore, SourceInfo, StoreReport,
+    StoredInspection, StoredRun,
 };
 use crate::core::units::{Dataset, IdKind};
 use crate::error::Error;
 use crate::results::rows::{run_rows, FinishedRun, RowSource, RunRecord, Value};
-use crate::results::{TableDef, JOBS, REGIONS_SUFFIX, RUNS};
+use crate::results::{TableDef, HELD_OUT, JOBS, REGIONS_SUFFIX, RUNS};
 
 /// Bytes per COPY message sent to the server.
 const CHUNK: usize = 1 << 20;
@@ -267,6 +268,18 @@ impl ResultStore for PostgisStore {
                 .map_err(|e| database_error(&action, &e))?;
             let mut counts: Vec<(String, u64)> = Vec::new();
             for run in runs {
+                if run.stage.replaces_held_out() {
+                    tx.execute(
+                        &format!(
+                            "DELETE FROM {}.{} WHERE run_id = $1",
+                            quote_ident(&schema),
+                            quote_ident(HELD_OUT.name)
+                        ),
+                        &[&run.record.run_id],
+                    )
+                    .await
+                    .map_err(|e| database_error("replacing the run's fold assignments", &e))?;
+                }
                 for rows in run_rows(data, run, info.srid) {
                     if rows.is_empty() {
                         continue;
@@ -292,7 +305,10 @@ impl ResultStore for PostgisStore {
                 .map_err(|e| database_error("summarising the run indexes", &e))?;
             }
             let mut layers = Vec::new();
-            if let Some(primary) = runs.iter().find(|run| run.record.primary_run_id.is_none()) {
+            if let Some(primary) = runs
+                .iter()
+                .find(|run| run.record.primary_run_id.is_none() && run.stage.shows_on_maps())
+            {
                 let regions = primary
                     .outcome
                     .repetitions
@@ -497,6 +513,14 @@ impl ResultStore for PostgisStore {
             .find(|run| run.run_id == run_id)
             .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
     }
+
+    fn assigned_run(&mut self, run_id: Uuid) -> Result<AssignedRun, Error> {
+        self.read_assigned_run(run_id)
+    }
+
+    fn read_predictions(&mut self, table: &str) -> Result<Vec<PredictionRow>, Error> {
+        self.read_prediction_table(table)
+    }
 }
 
 /// Loads one table's rows with binary COPY.
@@ -565,7 +589,7 @@ fn send_error(action: &str, error: &tokio_postgres::Error) -> Error {
     }
 }
 
-/// Marks a run succeeded with its input facts.
+/// Marks a run succeeded (or assigned) with its input facts.
 async fn mark_succeeded(
     tx: &Transaction<'_>,
     schema: &str,
@@ -574,7 +598,7 @@ async fn mark_succeeded(
 ) -> Result<(), Error> {
     tx.execute(
         &format!(
-            "UPDATE {}.{} SET status = 'succeeded', finished_at = clock_timestamp(), input_fingerprint = $2,
+            "UPDATE {}.{} SET status = $6, finished_at = clock_timestamp(), input_fingerprint = $2,
                 units_read = $3, units_used = $4, units_skipped = $5 WHERE run_id = $1",
             quote_ident(schema),
             quote_ident(RUNS.name)
@@ -585,6 +609,7 @@ async fn mark_succeeded(
             &(data.rows_read as i64),
             &(data.len() as i64),
             &data.skipped.counts_json(),
+            &run.stage.status(),
         ],
     )
     .await

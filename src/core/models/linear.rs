@@ -32,6 +32,15 @@
 //!   lose more than 8 of 16 digits) the fold is refitted from its training
 //!   rows directly instead. Checked against brute-force refits in the tests.
 //!
+//! # Text features and other solvers
+//! A fold uses the indicator columns of the text-feature levels seen in its
+//! training units but the reference level ([`super::design`]): its training
+//! triangle is cut to those columns by one more small QR of the selected
+//! columns of `R` (`RᵀR = XᵀX` holds column by column). The solver is given
+//! to [`fit_folds`]: least squares ([`solve`], for `ols`) or the ridge
+//! solution (`ridge`), which reads the training means and centred cross
+//! products from the same triangle.
+//!
 //! # Rank
 //! With columns scaled to their norms over the training units, a diagonal
 //! entry `|R_jj| ≤ max(n, p) · 10 · ε` means column `j` is (numerically) a
@@ -46,6 +55,7 @@ use std::sync::Arc;
 
 use nalgebra::DMatrix;
 
+use super::design::{training_level_counts, used_columns};
 use super::{FitError, Fitted, UnitView};
 use crate::core::folds::FoldSet;
 use crate::core::parallel::parallel_map;
@@ -185,6 +195,24 @@ impl Triangle {
         }
     }
 
+    /// The triangle of the same units with only the columns `[1, x'_used, y']`
+    /// (`used`: feature indices, ascending).
+    pub fn select(&self, used: &[usize]) -> Triangle {
+        let width = self.r.ncols();
+        if used.len() + 2 == width {
+            return self.clone();
+        }
+        let keep: Vec<usize> = std::iter::once(0)
+            .chain(used.iter().map(|&u| u + 1))
+            .chain(std::iter::once(width - 1))
+            .collect();
+        let stack = DMatrix::from_fn(self.r.nrows(), keep.len(), |i, j| self.r[(i, keep[j])]);
+        Triangle {
+            units: self.units,
+            r: r_of(stack),
+        }
+    }
+
     /// The triangle of the union of disjoint sets.
     pub fn merge(parts: &[&Triangle]) -> Triangle {
         let width = parts.first().map_or(0, |t| t.r.ncols());
@@ -286,13 +314,15 @@ pub fn term_name(features: &[String], j: usize) -> String {
     }
 }
 
-/// The standardised coefficients of the least-squares fit a triangle holds.
+/// The standardised coefficients of the least-squares fit a triangle of the
+/// columns `[1, x'_used, y']` holds (`features`: the names of the used features).
 ///
 /// # Errors
 /// Too few units, a constant feature, a rank-deficient design.
 pub fn solve(
     triangle: &Triangle,
     standardise: &Standardise,
+    used: &[usize],
     features: &[String],
 ) -> Result<Vec<f64>, FitError> {
     let width = triangle.r.ncols();
@@ -333,9 +363,10 @@ pub fn solve(
             .sqrt();
         if spread <= tolerance * norms[j] {
             let mean = r[(0, j)] / r[(0, 0)];
+            let column = used[j - 1];
             return Err(FitError::Constant {
                 feature: features.get(j - 1).cloned().unwrap_or_default(),
-                value: standardise.mean[j - 1] + standardise.scale[j - 1] * mean,
+                value: standardise.mean[column] + standardise.scale[column] * mean,
             });
         }
     }
@@ -364,21 +395,30 @@ pub fn solve(
 pub struct LinearFit {
     standardise: Arc<Standardise>,
     features: Arc<Vec<String>>,
-    /// Coefficients of `[1, x']`.
+    /// Coefficients of `[1, x']` (0 for unused columns).
     beta: Vec<f64>,
+    /// The feature columns estimated.
+    used: Vec<usize>,
 }
 
 impl LinearFit {
-    /// A fit from standardised coefficients.
+    /// A fit from the standardised coefficients of `[1, x'_used]`.
     pub fn new(
         standardise: Arc<Standardise>,
         features: Arc<Vec<String>>,
-        beta: Vec<f64>,
+        coefficients: &[f64],
+        used: &[usize],
     ) -> LinearFit {
+        let mut beta = vec![0.0; features.len() + 1];
+        beta[0] = coefficients[0];
+        for (k, &column) in used.iter().enumerate() {
+            beta[column + 1] = coefficients[k + 1];
+        }
         LinearFit {
             standardise,
             features,
             beta,
+            used: used.to_vec(),
         }
     }
 
@@ -408,31 +448,105 @@ impl Fitted for LinearFit {
     }
 
     fn coefficients(&self) -> Vec<(String, f64)> {
-        let names = std::iter::once("(intercept)".to_string()).chain(self.features.iter().cloned());
-        names.zip(self.original_coefficients()).collect()
+        let all = self.original_coefficients();
+        std::iter::once(("(intercept)".to_string(), all[0]))
+            .chain(
+                self.used
+                    .iter()
+                    .map(|&c| (self.features[c].clone(), all[c + 1])),
+            )
+            .collect()
     }
 }
 
-/// Fits the training set of every fold (see the module doc), in fold order.
-/// `min_units` is the fewest training units a fit needs.
-pub fn fit_folds(data: &Dataset, folds: &FoldSet) -> Vec<Result<Box<dyn Fitted>, FitError>> {
-    let standardise = Arc::new(Standardise::of(data));
+/// Fits a triangle of the columns `[1, x'_used, y']` into a fitted model.
+pub type Solver<'s> = dyn Fn(&Triangle, &[usize]) -> Result<Box<dyn Fitted>, FitError> + Sync + 's;
+
+/// The standardised coefficients of `[1, x'_used]` from a triangle of
+/// `[1, x'_used, y']`, given the used columns and their names: [`solve`]
+/// (least squares) or the ridge solution.
+pub type Coefficients = dyn Fn(&Triangle, &Standardise, &[usize], &[String]) -> Result<Vec<f64>, FitError>
+    + Send
+    + Sync;
+
+/// The solver of [`fit_folds`] that turns `coefficients` into a [`LinearFit`].
+pub fn solver<'s>(
+    data: &Dataset,
+    standardise: Arc<Standardise>,
+    coefficients: &'s Coefficients,
+) -> Box<Solver<'s>> {
     let features = Arc::new(data.feature_names.clone());
+    Box::new(move |triangle: &Triangle, used: &[usize]| {
+        let names: Vec<String> = used.iter().map(|&c| features[c].clone()).collect();
+        let beta = coefficients(triangle, &standardise, used, &names)?;
+        Ok(Box::new(LinearFit::new(
+            standardise.clone(),
+            features.clone(),
+            &beta,
+            used,
+        )) as Box<dyn Fitted>)
+    })
+}
+
+/// Fits the training `rows` with `coefficients` (the per-fold route).
+///
+/// # Errors
+/// As `coefficients`, and a text feature with one level in training.
+pub fn fit_training(
+    data: &Dataset,
+    rows: &[u32],
+    coefficients: &Coefficients,
+) -> Result<Box<dyn Fitted>, FitError> {
+    let standardise = Arc::new(Standardise::of(data));
+    let used = super::design::columns_of_rows(data, rows)?;
+    let triangle = Triangle::of_units(data, &standardise, rows.iter().copied());
+    solver(data, standardise, coefficients)(&triangle.select(&used), &used)
+}
+
+/// Fits every fold with `coefficients` (see [`fit_folds`]).
+pub fn fit_every_fold(
+    data: &Dataset,
+    folds: &FoldSet,
+    coefficients: &Coefficients,
+) -> Vec<Result<Box<dyn Fitted>, FitError>> {
+    let standardise = Arc::new(Standardise::of(data));
+    let solver = solver(data, standardise.clone(), coefficients);
+    fit_folds(data, folds, &standardise, solver.as_ref())
+}
+
+/// The feature columns of every fold ([`super::design`]): all of them
+/// without text features.
+fn fold_columns(data: &Dataset, folds: &FoldSet) -> Vec<Result<Vec<usize>, FitError>> {
+    if data.categorical.is_empty() {
+        return vec![Ok((0..data.n_features()).collect()); folds.k as usize];
+    }
+    training_level_counts(data, folds)
+        .iter()
+        .map(|counts| used_columns(data, counts))
+        .collect()
+}
+
+/// Fits the training set of every fold (see the module doc) with `solver`,
+/// in fold order; `standardise` must be [`Standardise::of`] the data.
+pub fn fit_folds(
+    data: &Dataset,
+    folds: &FoldSet,
+    standardise: &Standardise,
+    solver: &Solver<'_>,
+) -> Vec<Result<Box<dyn Fitted>, FitError>> {
     let test_units = folds.test_units();
     let k = folds.k as usize;
-    let fit = |triangle: &Triangle| -> Result<Box<dyn Fitted>, FitError> {
-        let beta = solve(triangle, &standardise, &features)?;
-        Ok(
-            Box::new(LinearFit::new(standardise.clone(), features.clone(), beta))
-                as Box<dyn Fitted>,
-        )
+    let columns = fold_columns(data, folds);
+    let fit = |fold: usize, triangle: &Triangle| -> Result<Box<dyn Fitted>, FitError> {
+        let used = columns[fold].clone()?;
+        solver(&triangle.select(&used), &used)
     };
     // The training units of fold f, directly (the fallback).
     let direct = |fold: usize| -> Triangle {
         let excluded = folds.excluded_from(fold as u32);
         Triangle::of_units(
             data,
-            &standardise,
+            standardise,
             (0..data.len() as u32).filter(|&unit| {
                 folds.fold_of[unit as usize] as usize != fold
                     && excluded.binary_search(&unit).is_err()
@@ -441,7 +555,7 @@ pub fn fit_folds(data: &Dataset, folds: &FoldSet) -> Vec<Result<Box<dyn Fitted>,
     };
     if k <= MERGE_FOLDS {
         let leaves: Vec<Triangle> = parallel_map(k, |g| {
-            Triangle::of_units(data, &standardise, test_units[g].iter().copied())
+            Triangle::of_units(data, standardise, test_units[g].iter().copied())
         });
         parallel_map(k, |f| {
             let excluded = folds.excluded_from(f as u32);
@@ -455,7 +569,7 @@ pub fn fit_folds(data: &Dataset, folds: &FoldSet) -> Vec<Result<Box<dyn Fitted>,
                 for g in (0..k).filter(|&g| g != f && touched[g]) {
                     partial.push(Triangle::of_units(
                         data,
-                        &standardise,
+                        standardise,
                         test_units[g]
                             .iter()
                             .copied()
@@ -469,18 +583,18 @@ pub fn fit_folds(data: &Dataset, folds: &FoldSet) -> Vec<Result<Box<dyn Fitted>,
                 .chain(partial.iter())
                 .collect();
             if parts.is_empty() {
-                return fit(&Triangle::empty(data.n_features() + 2));
+                return fit(f, &Triangle::empty(data.n_features() + 2));
             }
-            fit(&Triangle::merge(&parts))
+            fit(f, &Triangle::merge(&parts))
         })
     } else {
-        let everything = Triangle::of_units(data, &standardise, 0..data.len() as u32);
+        let everything = Triangle::of_units(data, standardise, 0..data.len() as u32);
         parallel_map(k, |f| {
             let mut removed: Vec<u32> = test_units[f].clone();
             removed.extend_from_slice(folds.excluded_from(f as u32));
-            match everything.downdate(data, &standardise, &removed) {
-                Some(triangle) => fit(&triangle),
-                None => fit(&direct(f)),
+            match everything.downdate(data, standardise, &removed) {
+                Some(triangle) => fit(f, &triangle),
+                None => fit(f, &direct(f)),
             }
         })
     }

@@ -17,12 +17,10 @@
 //! # Complexity
 //! O(n p²) time and O(n p) memory for n units and p coefficients.
 
-use std::sync::Arc;
-
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
-use super::linear::{self, LinearFit, Standardise, Triangle};
+use super::linear;
 use super::{model_params, FitError, Fitted, Model, ModelEntry, TrainingSet};
 use crate::core::folds::FoldSet;
 use crate::core::metrics::Family;
@@ -86,15 +84,7 @@ impl Model for Ols {
     }
 
     fn fit(&self, training: &TrainingSet<'_>) -> Result<Box<dyn Fitted>, FitError> {
-        let data = training.data;
-        let standardise = Arc::new(Standardise::of(data));
-        let triangle = Triangle::of_units(data, &standardise, training.rows.iter().copied());
-        let beta = linear::solve(&triangle, &standardise, &data.feature_names)?;
-        Ok(Box::new(LinearFit::new(
-            standardise,
-            Arc::new(data.feature_names.clone()),
-            beta,
-        )))
+        linear::fit_training(training.data, training.rows, &linear::solve)
     }
 
     fn fit_folds(
@@ -102,7 +92,7 @@ impl Model for Ols {
         data: &Dataset,
         folds: &FoldSet,
     ) -> Option<Vec<Result<Box<dyn Fitted>, FitError>>> {
-        Some(linear::fit_folds(data, folds))
+        Some(linear::fit_every_fold(data, folds, &linear::solve))
     }
 }
 

@@ -25,6 +25,7 @@ fn dataset(features: &[Vec<f64>], target: &[f64], points: &[[f64; 2]]) -> Datase
         skipped: Skipped::default(),
         groups: None,
         exposure: None,
+        categorical: Vec::new(),
     }
 }
 
@@ -80,6 +81,11 @@ fn refit(data: &Dataset, folds: &FoldSet, fold: u32) -> Vec<f64> {
         .coefficients
 }
 
+/// Every fold fitted by least squares through [`fit_folds`].
+fn ols_folds(data: &Dataset, folds: &FoldSet) -> Vec<Result<Box<dyn Fitted>, FitError>> {
+    fit_every_fold(data, folds, &solve)
+}
+
 fn relative_error(a: &[f64], b: &[f64]) -> f64 {
     a.iter()
         .zip(b)
@@ -124,8 +130,14 @@ fn merged_chunks_of_longley_give_the_certified_coefficients() {
     ];
     let merged = Triangle::merge(&parts.iter().collect::<Vec<_>>());
     assert_eq!(merged.units, 16);
-    let beta = solve(&merged, &standardise, &data.feature_names).unwrap();
-    let fit = LinearFit::new(standardise, Arc::new(data.feature_names.clone()), beta);
+    let used: Vec<usize> = (0..data.n_features()).collect();
+    let beta = solve(&merged, &standardise, &used, &data.feature_names).unwrap();
+    let fit = LinearFit::new(
+        standardise,
+        Arc::new(data.feature_names.clone()),
+        &beta,
+        &used,
+    );
     let certified = [
         -3482258.63459582,
         15.0618722713733,
@@ -147,7 +159,7 @@ fn merged_fold_fits_equal_direct_refits() {
     let folds = scheme
         .assign(&points.input(), &mut FoldRng::new(3, 0))
         .unwrap();
-    let fits = fit_folds(&data, &folds);
+    let fits = ols_folds(&data, &folds);
     assert_eq!(fits.len(), 7);
     for (fold, fit) in fits.iter().enumerate() {
         let fit = fit.as_ref().unwrap();
@@ -169,7 +181,7 @@ fn buffered_folds_equal_direct_refits() {
         .unwrap();
     exclude_within(&mut folds, &points.input(), 900.0);
     assert!(folds.has_exclusions());
-    for (fold, fit) in fit_folds(&data, &folds).iter().enumerate() {
+    for (fold, fit) in ols_folds(&data, &folds).iter().enumerate() {
         let fit = fit.as_ref().unwrap();
         let error = relative_error(
             &coefficients(fit.as_ref()),
@@ -190,7 +202,7 @@ fn leave_one_out_with_a_radius_equals_brute_force_refits() {
     // About π·1500²/10000² ≈ 7 % of the other units fall within the radius.
     let excluded: usize = folds.excluded.iter().map(Vec::len).sum();
     assert!(excluded > 300 * 15, "{excluded} exclusions");
-    let fits = fit_folds(&data, &folds);
+    let fits = ols_folds(&data, &folds);
     for fold in [0u32, 1, 77, 150, 299] {
         let fit = fits[fold as usize].as_ref().unwrap();
         let error = relative_error(&coefficients(fit.as_ref()), &refit(&data, &folds, fold));
@@ -222,7 +234,7 @@ fn a_fold_whose_training_feature_is_constant_names_it_on_both_paths() {
     let data = dataset(&features, &target, &points);
     let mut fold_of = vec![1u32; n];
     fold_of[..5].fill(0);
-    let fits = fit_folds(&data, &FoldSet::plain(2, fold_of));
+    let fits = ols_folds(&data, &FoldSet::plain(2, fold_of));
     match &fits[0] {
         Err(FitError::Constant { feature, value }) => {
             assert_eq!(feature, "x2");
@@ -235,7 +247,7 @@ fn a_fold_whose_training_feature_is_constant_names_it_on_both_paths() {
     let mut loo = FoldSet::plain(n as u32, (0..n as u32).collect());
     loo.excluded = vec![Vec::new(); n];
     loo.excluded[0] = vec![1, 2, 3, 4];
-    let fits = fit_folds(&data, &loo);
+    let fits = ols_folds(&data, &loo);
     assert!(matches!(&fits[0], Err(FitError::Constant { feature, .. }) if feature == "x2"));
     assert!(fits[10].is_ok());
 }
