@@ -369,3 +369,32 @@ fn bad_runs_folds_and_files_are_refused_with_their_codes() {
         assert_eq!(left, Vec::<String>::new());
     }
 }
+
+#[test]
+fn a_store_without_a_newer_table_is_read_as_it_is() {
+    // A store of an earlier results version has no coefficients table; the
+    // report leaves that section out and changes nothing in the store.
+    let stores = units_stores("report_older");
+    let both = stores.run_ok(UNITS_GRID);
+    stores.pg.script("DROP TABLE {r}.coefficients CASCADE");
+    common::gdal::sqlite_edit(&stores.results_gpkg, "DROP TABLE coefficients");
+    for store in BOTH {
+        let run = both.get(store).run_id(0);
+        let doc = ok_json(&geofold(
+            &stores.workdir,
+            "report",
+            store_args(&stores, store, "results.gpkg"),
+            &["--run", &run, "--to", "older.html", "--json"],
+        ));
+        assert_sections(&doc, &["scores", "maps"]);
+        assert!(
+            !doc["sections"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .any(|s| s == "coefficients"),
+            "{doc}"
+        );
+    }
+    assert!(!stores.pg.has_result_relation("coefficients"));
+}

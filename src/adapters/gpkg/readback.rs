@@ -97,7 +97,33 @@ impl ReadBack for GpkgStore {
         key_column(table, key)?;
         let path = self.path().to_path_buf();
         let conn = self.reading()?;
-        let columns: Vec<String> = table.columns.iter().map(|c| quote(c.name)).collect();
+        // A file made by an earlier geofold may lack a newer table (no rows)
+        // or column (read as NULL): reading never changes a store.
+        let present: Vec<String> = {
+            let mut statement = conn
+                .prepare("SELECT name FROM pragma_table_info(?1)")
+                .map_err(|e| sqlite_error(&path, "reading the results tables' columns", &e))?;
+            let names = statement
+                .query_map([table.name], |row| row.get(0))
+                .map_err(|e| sqlite_error(&path, "reading the results tables' columns", &e))?;
+            names
+                .collect::<Result<_, _>>()
+                .map_err(|e| sqlite_error(&path, "reading the results tables' columns", &e))?
+        };
+        if !present.iter().any(|c| c == key) {
+            return Ok(());
+        }
+        let columns: Vec<String> = table
+            .columns
+            .iter()
+            .map(|c| {
+                if present.iter().any(|p| p == c.name) {
+                    quote(c.name)
+                } else {
+                    "NULL".to_string()
+                }
+            })
+            .collect();
         let order = match table.keying {
             Keying::Serial(key) => quote(key),
             Keying::Primary(key) => key.iter().map(|k| quote(k)).collect::<Vec<_>>().join(", "),

@@ -13,6 +13,47 @@ use crate::error::Error;
 use crate::results::rows::Owned;
 use crate::results::{ColumnType, Keying, TableDef};
 
+/// A typed NULL for a column the store lacks, of the type [`read_expression`] gives.
+fn null_expression(ty: ColumnType) -> &'static str {
+    match ty {
+        ColumnType::Int | ColumnType::BigInt | ColumnType::Bool => "NULL::int8",
+        ColumnType::Float => "NULL::float8",
+        ColumnType::Geometry => "NULL::bytea",
+        _ => "NULL::text",
+    }
+}
+
+impl PostgisStore {
+    /// The columns of results table `name`, None when the schema has no such table.
+    fn existing_columns(&self, name: &str) -> Result<Option<Vec<String>>, Error> {
+        let session = self.session();
+        let action = format!("reading the columns of {}.{name}", self.schema());
+        let relation = format!("{}.{}", quote_ident(self.schema()), quote_ident(name));
+        let rows = session
+            .runtime
+            .block_on(session.client.query(
+                "SELECT a.attname::text, c.oid IS NOT NULL FROM (SELECT to_regclass($1) AS oid) c \
+                 LEFT JOIN pg_attribute a ON a.attrelid = c.oid AND a.attnum > 0 AND NOT a.attisdropped",
+                &[&relation],
+            ))
+            .map_err(|e| database_error(&action, &e))?;
+        let mut columns = Vec::new();
+        for row in &rows {
+            let exists: bool = row.try_get(1).map_err(|e| database_error(&action, &e))?;
+            if !exists {
+                return Ok(None);
+            }
+            if let Some(name) = row
+                .try_get::<_, Option<String>>(0)
+                .map_err(|e| database_error(&action, &e))?
+            {
+                columns.push(name);
+            }
+        }
+        Ok(Some(columns))
+    }
+}
+
 impl ReadBack for PostgisStore {
     fn read_rows(
         &mut self,
@@ -22,10 +63,24 @@ impl ReadBack for PostgisStore {
         visit: &mut dyn FnMut(Vec<Owned>) -> Result<(), Error>,
     ) -> Result<(), Error> {
         let key_type = key_column(table, key)?.ty;
+        // A store made by an earlier geofold may lack a newer table (no rows)
+        // or column (read as NULL): reading never changes a store.
+        let Some(present) = self.existing_columns(table.name)? else {
+            return Ok(());
+        };
+        if !present.iter().any(|c| c == key) {
+            return Ok(());
+        }
         let columns: Vec<String> = table
             .columns
             .iter()
-            .map(|c| read_expression(c.name, c.ty))
+            .map(|c| {
+                if present.iter().any(|p| p == c.name) {
+                    read_expression(c.name, c.ty)
+                } else {
+                    null_expression(c.ty).to_string()
+                }
+            })
             .collect();
         let order = match table.keying {
             Keying::Serial(key) => format!(" ORDER BY {}", quote_ident(key)),
