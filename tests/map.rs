@@ -353,3 +353,33 @@ fn bad_runs_folds_and_files_are_refused_with_their_codes() {
         assert_eq!(left, Vec::<String>::new());
     }
 }
+
+#[test]
+fn a_run_whose_unit_shapes_are_gone_reports_without_maps_and_maps_nothing() {
+    let stores = units_stores("map_gone");
+    let both = stores.run_ok(UNITS_GRID);
+    // The PostGIS source table and the GeoPackage job layer (the results file
+    // is not the source's, so its unit layer holds the shapes) are dropped.
+    stores.pg.script("DROP TABLE {s}.units CASCADE");
+    common::gdal::sqlite_edit(&stores.results_gpkg, "DROP TABLE units");
+    for store in BOTH {
+        let run = both.get(store).run_id(0);
+        let message = fails(
+            &map(
+                &stores,
+                store,
+                &["--run", &run, "--layer", "error", "--to", "gone.svg"],
+            ),
+            66,
+        );
+        assert_contains(&message, &[&run, "36 units"]);
+        assert!(!stores.workdir.path("gone.svg").exists());
+        let mut all = vec!["report".to_string()];
+        all.extend(store_args(&stores, store));
+        all.extend(["--run", &run, "--to", "gone.html", "--json"].map(String::from));
+        let doc = ok_json(&stores.workdir.run(&all));
+        assert_eq!(doc["units_without_geometry"], 36, "{doc}");
+        assert_eq!(doc["maps"], serde_json::json!([]));
+        assert!(doc["geometry_problem"].is_string(), "{doc}");
+    }
+}

@@ -116,7 +116,8 @@ impl MapWritten {
 /// # Errors
 /// 64 for a bad run id, a file name that is neither .svg nor .png, --fold
 /// without --layer split, or a fold the run does not have; 66 for an unknown
-/// run or job; 65 for a run that did not succeed or has no unit geometry; 73
+/// run or job, or when no unit's geometry can be found; 65 for a run that did
+/// not succeed; 73
 /// when the file cannot be written; database and file errors.
 pub fn run(args: &MapArgs) -> Result<MapWritten, Error> {
     let format = match args
@@ -157,6 +158,19 @@ pub fn run(args: &MapArgs) -> Result<MapWritten, Error> {
         Layer::Residual => MapKind::Residual,
     };
     let input = take_map_input(&mut stored, &args.target_unit);
+    if input.units.is_empty() {
+        return Err(Error::NotFound {
+            what: format!(
+                "a geometry for any of the {} units of run {}: {}",
+                stored.units.len(),
+                stored.run.run_id,
+                stored
+                    .geometry_problem
+                    .clone()
+                    .unwrap_or_else(|| "the source has none of their ids".to_string())
+            ),
+        });
+    }
     let options = MapOptions {
         width: args.width,
         height: args.width * 2 / 3,

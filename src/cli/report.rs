@@ -65,6 +65,8 @@ pub struct ReportWritten {
     pub units_without_geometry: u64,
     /// Where the unit geometries came from.
     pub geometries_from: Option<String>,
+    /// Why no unit geometry could be read, when none could (the maps are left out).
+    pub geometry_problem: Option<String>,
 }
 
 impl ReportWritten {
@@ -84,7 +86,9 @@ impl ReportWritten {
                 self.maps.join(", ")
             }
         );
-        if self.units_without_geometry > 0 {
+        if let Some(problem) = &self.geometry_problem {
+            text.push_str(&format!("\n  no maps: {problem}"));
+        } else if self.units_without_geometry > 0 {
             text.push_str(&format!(
                 "\n  {} unit(s) have no geometry in {} and are left off the maps",
                 self.units_without_geometry,
@@ -151,5 +155,6 @@ pub fn run(args: &ReportArgs) -> Result<ReportWritten, Error> {
         units_drawn: maps.as_ref().map_or(0, |m| m.units.len() as u64),
         units_without_geometry: stored.units_without_geometry,
         geometries_from: stored.geometry_origin.as_ref().map(|o| o.read_from.clone()),
+        geometry_problem: stored.geometry_problem.clone(),
     })
 }

@@ -7,7 +7,7 @@ use std::collections::BTreeMap;
 use super::{FoldRecord, InspectionRecord, MoranRecord, Row, RunRecord, StoredRun, UnitRecord};
 use crate::adapters::history::Store;
 use crate::adapters::readback::UnitSource;
-use crate::error::{Error, Location};
+use crate::error::{exit, Error, Location};
 use crate::results::rows::Owned;
 use crate::results::{
     TableDef, COEFFICIENTS, CORRELOGRAM, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS,
@@ -194,6 +194,7 @@ pub fn load(
         units: Vec::new(),
         units_without_geometry: 0,
         geometry_origin: None,
+        geometry_problem: None,
         regions: Vec::new(),
         diagnostics,
         coefficients,
@@ -425,7 +426,7 @@ fn read_units(store: &mut dyn Store, stored: &mut StoredRun) -> Result<(), Error
     // Shapes go straight into the units (sorted by id), so no second map of a
     // million ids is held.
     let mut records: Vec<UnitRecord> = units.into_values().collect();
-    let origin = store.unit_geometries(&source, &mut |unit_id, shape| {
+    let read = store.unit_geometries(&source, &mut |unit_id, shape| {
         if let (Ok(at), Some(shape)) = (
             records.binary_search_by(|u| u.unit_id.as_str().cmp(&unit_id)),
             shape,
@@ -433,7 +434,18 @@ fn read_units(store: &mut dyn Store, stored: &mut StoredRun) -> Result<(), Error
             records[at].geometry.get_or_insert(shape);
         }
         Ok(())
-    })?;
+    });
+    // A source that is gone leaves the units without shapes: said, not fatal
+    // (the report is still worth having without its maps).
+    let origin = match read {
+        Ok(origin) => Some(origin),
+        Err(error) if error.exit_code() == exit::NO_INPUT => {
+            tracing::warn!(run_id = %stored.run.run_id, %error, "the unit geometries cannot be read");
+            stored.geometry_problem = Some(error.to_string());
+            None
+        }
+        Err(error) => return Err(error),
+    };
     let mut missing = 0u64;
     for unit in &mut records {
         unit.excluded_from.sort_unstable();
@@ -442,7 +454,7 @@ fn read_units(store: &mut dyn Store, stored: &mut StoredRun) -> Result<(), Error
             missing += 1;
         }
     }
-    if missing > 0 {
+    if let (true, Some(origin)) = (missing > 0, &origin) {
         tracing::warn!(
             run_id = %stored.run.run_id,
             units = missing,
@@ -450,7 +462,10 @@ fn read_units(store: &mut dyn Store, stored: &mut StoredRun) -> Result<(), Error
             "units without a geometry are left off the maps"
         );
     }
-    if origin.srid != stored.run.distance_srid {
+    if let Some(origin) = origin
+        .as_ref()
+        .filter(|o| o.srid != stored.run.distance_srid)
+    {
         // The regions are in the distance CRS and the shapes are not: draw the
         // shapes in their own CRS, without the regions.
         stored.crs = store.crs(origin.srid)?;
@@ -458,7 +473,7 @@ fn read_units(store: &mut dyn Store, stored: &mut StoredRun) -> Result<(), Error
     }
     stored.units = records;
     stored.units_without_geometry = missing;
-    stored.geometry_origin = Some(origin);
+    stored.geometry_origin = origin;
     stored.regions = regions.into_iter().collect();
     Ok(())
 }

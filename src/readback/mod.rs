@@ -306,6 +306,8 @@ pub struct StoredRun {
     pub units_without_geometry: u64,
     /// Where the geometries came from (None when not read).
     pub geometry_origin: Option<GeometryOrigin>,
+    /// Why no geometry could be read (the source table or layer is gone), if so.
+    pub geometry_problem: Option<String>,
     /// Fold regions of repetition 1: (fold, outline), by fold.
     pub regions: Vec<(u32, MultiPolygon<f64>)>,
     /// The CRS of the geometries.

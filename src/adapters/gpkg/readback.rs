@@ -189,7 +189,9 @@ impl ReadBack for GpkgStore {
                     .map_err(|e| sqlite_error(&path, "looking for the job's unit layer", &e))?
                     .flatten();
                 let head = description.split(';').next().unwrap_or_default();
-                if ours.as_deref().and_then(|d| d.split(';').next()) != Some(head) {
+                let present = schema::has_table(conn, "main", &unit_layer)
+                    .map_err(|e| sqlite_error(&path, "looking for the job's unit layer", &e))?;
+                if !present || ours.as_deref().and_then(|d| d.split(';').next()) != Some(head) {
                     return Err(Error::NotFound {
                         what: format!(
                             "the unit geometries of run {}: its source {} is not in {} and the file has \
