@@ -170,6 +170,7 @@ pub const RUN_TABLES: &[(&str, &str)] = &[
     ("run_score_values", "run_id"),
     ("fold_regions", "run_id"),
     ("fold_exclusions", "run_id"),
+    ("coefficients", "run_id"),
     // Each run's held-out residual Moran's I.
     ("diagnostics", "analysis_id"),
 ];
