@@ -10,13 +10,15 @@
 //! - Every SVG parses as XML (roxmltree) and carries its legend.
 //! - A PNG of a small run shows a unit of known class (its fold's test units,
 //!   from SQL) in that class's colour at the unit's centre.
+//! - A random-fold run (no regions) colours its units by fold.
 //! - Bad input: an unknown run or job (66, the id named), a fold the run does
-//!   not have (64), an unwritable file (73, nothing left behind).
+//!   not have (64), an unwritable file (73, nothing left behind); a run whose
+//!   unit shapes are gone reports without maps and maps nothing (66).
 
 mod common;
 
 use common::chromium::Image;
-use common::fixtures::{create_units, IdType, UNITS_GRID};
+use common::fixtures::{create_units, IdType, UNITS_COLUMNS, UNITS_GRID};
 use common::stores::{Store, Stores, BOTH};
 use common::{assert_contains, fails, ok_json, Workdir};
 use geo::{Area, BoundingRect};
@@ -381,5 +383,44 @@ fn a_run_whose_unit_shapes_are_gone_reports_without_maps_and_maps_nothing() {
         assert_eq!(doc["units_without_geometry"], 36, "{doc}");
         assert_eq!(doc["maps"], serde_json::json!([]));
         assert!(doc["geometry_problem"].is_string(), "{doc}");
+    }
+}
+
+#[test]
+fn a_random_fold_run_has_no_regions_and_colours_its_units_by_fold() {
+    let stores = units_stores("map_random");
+    let both = stores.run_ok(&[UNITS_COLUMNS, &["--scheme", "random", "--folds", "4"]].concat());
+    for store in BOTH {
+        let run = both.get(store).run_id(0);
+        let mut opened =
+            geofold::pipeline::open_store(&results(&stores, store), &Limits::default()).unwrap();
+        let stored = load(
+            opened.as_mut(),
+            &RunChoice::Run(uuid::Uuid::parse_str(&run).unwrap()),
+            Reading {
+                units: true,
+                job: false,
+            },
+        )
+        .unwrap();
+        assert!(stored.regions.is_empty(), "random folds have no regions");
+        assert_eq!(stored.fold_numbers(), vec![1, 2, 3, 4]);
+        let doc = ok_json(&map(
+            &stores,
+            store,
+            &[
+                "--run",
+                &run,
+                "--layer",
+                "folds",
+                "--to",
+                "random.svg",
+                "--json",
+            ],
+        ));
+        assert_eq!(doc["units_drawn"], 36);
+        let text = std::fs::read_to_string(stores.workdir.path("random.svg")).unwrap();
+        roxmltree::Document::parse(&text).unwrap();
+        assert_contains(&text, &["Fold 4"]);
     }
 }
