@@ -84,6 +84,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         groups: None,
         exposure,
         categorical: Vec::new(),
+        geometries: None,
     };
 
     let index = NeighbourIndex::new(&points);
@@ -92,6 +93,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         index: &index,
         groups: None,
         prediction_points: None,
+        geometries: None,
+        exclusion_radius: None,
     };
     let mut scheme_options = Options::new();
     scheme_options.insert("block-size".into(), 5000.into());

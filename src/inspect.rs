@@ -205,6 +205,7 @@ pub fn inspect(spec: &InspectSpec) -> Result<Inspection, Error> {
         &info,
         &job,
         spec.strict,
+        false,
         &crate::progress::Silent,
     )?;
     let rule = match &spec.weights {
@@ -573,6 +574,29 @@ impl Inspection {
             );
         }
         let _ = write!(out, "advice: {}", self.advice.render_with(&length));
+        let residual_clustered = self.moran.iter().any(|m| {
+            m.subject == "residuals"
+                && m.moran.randomisation.p_two_sided < 0.05
+                && m.moran.statistic > m.moran.randomisation.expected
+        });
+        let first_populated = self
+            .semivariogram
+            .lags
+            .iter()
+            .find(|l| l.pairs > 0)
+            .and_then(|l| l.distance);
+        if let (true, None, Some(shortest)) =
+            (residual_clustered, self.advice.block_size, first_populated)
+        {
+            let _ = writeln!(
+                out,
+                "  note: Moran's I finds the residuals of neighbouring units alike ({} weights), but the \
+                 semivariogram shows no structure from {} on: the structure lies between neighbours closer \
+                 than that; blocks of at least a few neighbour spacings keep test units apart from them",
+                self.weights,
+                length(shortest)
+            );
+        }
         let _ = writeln!(out, "stored in {}", self.stored_in);
         out
     }

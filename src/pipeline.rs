@@ -8,14 +8,17 @@
 //! 3. Open the results store and enter the job's exclusive section (a second
 //!    run of the job exits busy, or waits `--wait`).
 //! 4. Read and check every row (and the target and exposure against the
-//!    model's family). With `--skip-unchanged`, stop here with
+//!    model's family), and the prediction locations when given. With `--skip-unchanged`, stop here with
 //!    [`Outcome::Unchanged`] when the input fingerprint and the settings hash
 //!    match the job's last successful run. Assign every repetition's folds and
-//!    check held-out levels of text features against `--unseen-levels`.
+//!    check held-out levels of text features against `--unseen-levels` and
+//!    that every fold keeps enough training units.
 //!    Bad input stops here: nothing is written, no run is recorded.
 //! 5. Create or upgrade the results tables, mark failed the runs of
 //!    processes that are gone, and record the runs as `running`.
-//! 6. Fit and score; write every result row in one transaction.
+//! 6. Fit and score (with prediction locations, match the folds' nearest
+//!    distances against theirs); Moran's I of the held-out residuals; write
+//!    every result row in one transaction.
 //!    A failure here marks the runs failed and leaves no result rows.
 //!    With `--assign-only` nothing is fitted: the folds are written and the
 //!    runs marked `assigned`, awaiting `geofold score` ([`crate::scoring`]).
@@ -38,20 +41,26 @@ use crate::adapters::postgis::read::PostgisSource;
 use crate::adapters::postgis::store::PostgisStore;
 use crate::adapters::postgis::Session;
 use crate::adapters::ColumnSpec;
-use crate::adapters::{default_job, CrsKind, ResultStore, Source, SourceInfo, StoredInspection};
+use crate::adapters::{
+    default_job, CrsKind, Locations, ResultStore, Source, SourceInfo, StoredInspection,
+};
+use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
 use crate::core::diagnostics::held_out::HeldOutWeights;
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
+use crate::core::matching::{prediction_distances, Matching};
 use crate::core::metrics::Family;
 use crate::core::models::design::{unseen_levels, UnseenPolicy};
 use crate::core::neighbours::NeighbourIndex;
 use crate::core::units::{Dataset, UnitCollector};
-use crate::core::validate::{assign_folds, assigned, fit_and_score, id_list, Plan, RunOutcome};
+use crate::core::validate::{
+    assign_folds, assigned, check_training, fit_and_score, id_list, Plan, RunOutcome,
+};
 use crate::error::{exit, Error, Location};
 use crate::progress::{Phase, Progress, Silent};
 use crate::report::Summary;
 use crate::results::rows::{run_rows, FinishedRun, RunRecord, Stage};
-use crate::spec::{Limits, ResultsRef, RunSpec, SourceRef};
+use crate::spec::{Limits, PredictionRef, ResultsRef, RunSpec, SourceRef};
 
 /// Opens a source.
 ///
@@ -187,6 +196,7 @@ pub fn read_units(
     info: &SourceInfo,
     job: &str,
     strict: bool,
+    keep_geometries: bool,
     progress: &dyn Progress,
 ) -> Result<Dataset, Error> {
     let clock = std::time::Instant::now();
@@ -200,6 +210,7 @@ pub fn read_units(
     .with_group(info.group_column.as_deref())
     .with_exposure(info.exposure_column.as_deref())
     .with_text_features(&info.text_features)
+    .with_geometries(keep_geometries)
     .with_row_counter(Arc::clone(&counter));
     progress.start(Phase::Read, None);
     let read = read_rows(source, &mut collector, &counter, progress);
@@ -461,15 +472,31 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
         &spec.limits,
         checked.scheme.needs_distances()
             || checked.model.needs_distances()
-            || spec.exclusion_radius.is_some(),
+            || spec.exclusion_radius.is_some()
+            || spec.prediction.is_some(),
         spec.assume_metres,
     )?;
     let job = job_of(spec.job.as_deref(), &spec.source, &spec.results, &info);
     crate::adapters::check_job(&job)?;
     let mut store = open_store(&spec.results, &spec.limits)?;
     store.lock_job(&job, spec.limits.wait())?;
-    let data = read_units(source.as_mut(), &info, &job, spec.strict, progress)?;
+    let mut data = read_units(
+        source.as_mut(),
+        &info,
+        &job,
+        spec.strict,
+        checked.scheme.requirements().geometries,
+        progress,
+    )?;
+    let locations: Option<Locations> = match &spec.prediction {
+        Some(PredictionRef::Postgis { table, geom }) => {
+            Some(source.read_locations(table, geom.as_deref(), spec.distance_srid)?)
+        }
+        Some(PredictionRef::Gpkg { layer }) => Some(source.read_locations(layer, None, None)?),
+        None => None,
+    };
     drop(source);
+    let geometries = data.geometries.take();
     check_family(&info, &data, checked.model.family())?;
 
     let settings_hash = spec.settings_hash();
@@ -485,7 +512,9 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
         points: &data.points,
         index: &index,
         groups: data.groups.as_ref(),
-        prediction_points: None,
+        prediction_points: locations.as_ref().map(|l| l.points.as_slice()),
+        geometries: geometries.as_deref(),
+        exclusion_radius: spec.exclusion_radius,
     };
     let random = Random::new(
         checked
@@ -516,6 +545,13 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
             exclusion_radius: spec.exclusion_radius,
         };
         let folds = assign_folds(&input, &plan)?;
+        check_training(
+            &folds,
+            data.len(),
+            checked.model.min_training_units(data.n_features()),
+            &checked.model.describe(),
+            spec.exclusion_radius,
+        )?;
         let unseen = check_unseen(&info, &data, &folds, spec.unseen_levels)?;
         let record = RunRecord {
             run_id: Uuid::new_v4(),
@@ -545,6 +581,10 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
         });
     }
 
+    drop(geometries);
+    let prediction = locations
+        .as_ref()
+        .map(|l| prediction_distances(&l.points, &index));
     store.prepare(&info)?;
     if let (Some(inspection), Some(primary)) = (store.last_inspection(&job)?, planned.first_mut()) {
         let warnings = scale_warnings(&primary.record.parameters, &inspection, &|v| info.length(v));
@@ -554,15 +594,17 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
     }
     let records: Vec<RunRecord> = planned.iter().map(|p| p.record.clone()).collect();
     store.begin(&info, &records)?;
-    let result = fit_and_write(
+    let context = Context {
         spec,
-        &checked,
-        &info,
-        &data,
-        planned,
-        store.as_mut(),
+        checked: &checked,
+        info: &info,
+        data: &data,
+        locations: locations.as_ref(),
+        prediction: prediction.as_deref(),
+        index: &index,
         progress,
-    );
+    };
+    let result = fit_and_write(&context, planned, store.as_mut());
     let mut summary = match result {
         Ok(summary) => summary,
         Err(error) => {
@@ -639,16 +681,34 @@ fn judge_gates(
     Ok(())
 }
 
+/// What step 6 works from.
+struct Context<'a> {
+    spec: &'a RunSpec,
+    checked: &'a crate::spec::Checked,
+    info: &'a SourceInfo,
+    data: &'a Dataset,
+    locations: Option<&'a Locations>,
+    /// Prediction distances (each location to its nearest unit).
+    prediction: Option<&'a [f64]>,
+    /// The neighbour index of the units.
+    index: &'a NeighbourIndex,
+    progress: &'a dyn Progress,
+}
+
 /// Step 6 of the module doc.
 fn fit_and_write(
-    spec: &RunSpec,
-    checked: &crate::spec::Checked,
-    info: &SourceInfo,
-    data: &Dataset,
+    context: &Context<'_>,
     planned: Vec<Planned<'_>>,
     store: &mut dyn ResultStore,
-    progress: &dyn Progress,
 ) -> Result<Summary, Error> {
+    let Context {
+        spec,
+        checked,
+        info,
+        data,
+        progress,
+        ..
+    } = *context;
     let clock = std::time::Instant::now();
     let mut records = Vec::new();
     let mut outcomes: Vec<RunOutcome> = Vec::new();
@@ -683,6 +743,14 @@ fn fit_and_write(
         progress.update(folds_done);
         let mut outcome = outcome?;
         outcome.notes.extend(unseen);
+        if let Some(prediction) = context.prediction {
+            let cv: Vec<&[f64]> = outcome
+                .repetitions
+                .iter()
+                .filter_map(|r| r.folds.cv_distances.as_deref())
+                .collect();
+            outcome.matching = Some(Matching::new(prediction.to_vec(), &cv));
+        }
         outcomes.push(outcome);
         descriptions.push(scheme.describe(&|value| info.length(value)));
         records.push(record);
@@ -697,6 +765,17 @@ fn fit_and_write(
     let clock = std::time::Instant::now();
     if !spec.assign_only {
         attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
+    }
+    for outcome in &mut outcomes {
+        if let Some(first) = outcome.repetitions.first() {
+            outcome.fold_distances =
+                fold_distances(&first.folds, &data.points, context.index, spec.seed);
+        }
+        outcome.fold_distances.extend(
+            context
+                .prediction
+                .and_then(|p| summarise("prediction", None, p, None)),
+        );
     }
     tracing::info!(
         phase = "diagnostics",
@@ -732,7 +811,7 @@ fn fit_and_write(
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "wrote results"
     );
-    let summary = Summary::new(
+    let mut summary = Summary::new(
         info,
         data,
         &records,
@@ -742,6 +821,7 @@ fn fit_and_write(
         spec.exclusion_radius,
         report,
     );
+    summary.prediction_locations = context.locations.cloned();
     Ok(match (spec.assign_only, checked.model.uses_features()) {
         (true, _) => summary.assigned(),
         (false, false) => summary.location_only(),

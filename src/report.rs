@@ -14,8 +14,10 @@ use std::fmt::Write as _;
 
 use serde::Serialize;
 
-use crate::adapters::{SourceInfo, StoreReport};
+use crate::adapters::{Locations, SourceInfo, StoreReport};
+use crate::core::diagnostics::fold_distances::DistanceSummary;
 use crate::core::diagnostics::held_out::HeldOutMoran;
+use crate::core::matching::Matching;
 use crate::core::metrics::{score_def, Better, Scores, Spread, THRESHOLD};
 use crate::core::units::{Dataset, Skipped};
 use crate::core::validate::RunOutcome;
@@ -84,6 +86,9 @@ pub struct RunSummary {
     pub baseline: Scores,
     /// Moran's I of the held-out residuals, when it could be computed.
     pub held_out_moran: Option<HeldOutMoran>,
+    /// Test-to-training nearest distances (repetition 1), pooled then per
+    /// fold, and the prediction distances when the run has locations.
+    pub fold_distances: Vec<DistanceSummary>,
     /// Per fold and repetition.
     pub folds: Vec<FoldSummary>,
     /// Each fitted term's spread over all folds of all repetitions.
@@ -91,6 +96,12 @@ pub struct RunSummary {
     /// Held-out predictions made by a fallback rule or with all-zero
     /// indicators: `(what, units)`.
     pub notes: Vec<(String, usize)>,
+    /// Distance matching against the prediction locations: W (the
+    /// Wasserstein-1 distance between the test-to-training distances during
+    /// cross-validation and the prediction-location-to-data distances), per
+    /// repetition and over all, with both medians. None without prediction
+    /// locations.
+    pub matching: Option<Matching>,
 }
 
 /// How much more optimistic the random folds were than the spatial ones.
@@ -146,6 +157,8 @@ pub struct Summary {
     pub results: StoreReport,
     /// The drift gates, judged on the stored scores (empty without gates).
     pub gates: Vec<crate::gates::GateResult>,
+    /// The prediction locations read, when the run named them.
+    pub prediction_locations: Option<Locations>,
 }
 
 impl Summary {
@@ -188,6 +201,7 @@ impl Summary {
                     repeat_spread: outcome.repeat_spread.clone(),
                     baseline: outcome.baseline.clone(),
                     held_out_moran: outcome.held_out_moran.clone(),
+                    fold_distances: outcome.fold_distances.clone(),
                     folds: outcome
                         .repetitions
                         .iter()
@@ -208,6 +222,7 @@ impl Summary {
                         .collect(),
                     coefficients: term_spreads(outcome),
                     notes: outcome.notes.clone(),
+                    matching: outcome.matching.clone(),
                 }
             })
             .collect();
@@ -250,6 +265,7 @@ impl Summary {
             features_used: true,
             results,
             gates: Vec::new(),
+            prediction_locations: None,
         }
     }
 
@@ -300,6 +316,19 @@ impl Summary {
                 out,
                 "exclusion buffer: training units within {} of a test unit are left out of that fold's training",
                 source.length(radius)
+            );
+        }
+        if let Some(locations) = &self.prediction_locations {
+            let _ = writeln!(
+                out,
+                "prediction locations: {} from {}{}",
+                locations.points.len(),
+                locations.table,
+                if locations.skipped > 0 {
+                    format!(" ({} skipped: NULL or empty geometry)", locations.skipped)
+                } else {
+                    String::new()
+                }
             );
         }
         if self.units_skipped > 0 {
@@ -426,17 +455,56 @@ impl Summary {
                 per["median"], per["min"], per["max"]
             );
         }
+        split_text(out, &run.split);
+        if let Some(matching) = &run.matching {
+            let _ = writeln!(
+                out,
+                "  distance matching: W = {} (Wasserstein-1 distance between the test-to-training distances during \
+                 cross-validation, median {}, and the distances from the prediction locations to the data, median \
+                 {}; 0 is a perfect match, in CRS units)",
+                number(matching.w),
+                self.source.length(matching.cv_median),
+                self.source.length(matching.prediction_median)
+            );
+            if matching.w_per_repetition.len() > 1 {
+                let n = matching.w_per_repetition.len() as f64;
+                let mean = matching.w_per_repetition.iter().sum::<f64>() / n;
+                let sd = (matching
+                    .w_per_repetition
+                    .iter()
+                    .map(|w| (w - mean).powi(2))
+                    .sum::<f64>()
+                    / (n - 1.0))
+                    .sqrt();
+                let _ = writeln!(
+                    out,
+                    "  W over the {} repetitions (mean ± SD): {} ± {}",
+                    matching.w_per_repetition.len(),
+                    number(mean),
+                    number(sd)
+                );
+            }
+        }
         for warning in &run.warnings {
             let _ = writeln!(out, "  warning: {warning}");
         }
         let names: Vec<&'static str> = run.pooled.values.iter().map(|(name, _)| *name).collect();
+        // Folds of one unit each (leave-one-out): per-fold scores are single
+        // errors, so the table and the per-fold spread are left out.
+        let single_units = run.folds.iter().all(|f| f.n_test == 1);
         let shown: Vec<&FoldSummary> = run
             .folds
             .iter()
-            .filter(|f| f.repetition == 1)
+            .filter(|f| f.repetition == 1 && !single_units)
             .take(30)
             .collect();
-        if run.repeats > 1 || run.folds.len() > shown.len() {
+        if single_units {
+            let _ = writeln!(
+                out,
+                "  {} folds of one unit each: per-fold scores are single errors (table fold_scores); read the pooled scores",
+                run.folds.iter().filter(|f| f.repetition == 1).count()
+            );
+        } else if run.repeats > 1 || run.folds.len() > shown.len() {
             let _ = writeln!(
                 out,
                 "  folds of repetition 1{}:",
@@ -454,7 +522,9 @@ impl Summary {
         for name in &names {
             let _ = write!(header, " {:>10}", label(name));
         }
-        let _ = writeln!(out, "{header}");
+        if !single_units {
+            let _ = writeln!(out, "{header}");
+        }
         for fold in shown {
             let mut line = format!(
                 "  {:>5} {:>9} {:>8} {:>9}",
@@ -522,7 +592,9 @@ impl Summary {
             .filter(|(name, _)| *name != "bias")
             .map(|(name, s)| format!("{} {} ± {}", label(name), number(s.mean), number(s.sd)))
             .collect();
-        let _ = writeln!(out, "  per-fold mean ± SD: {}", spread.join("  "));
+        if !single_units {
+            let _ = writeln!(out, "  per-fold mean ± SD: {}", spread.join("  "));
+        }
         if let Some(repeats) = &run.repeat_spread {
             let spread: Vec<String> = repeats
                 .iter()
@@ -536,6 +608,7 @@ impl Summary {
                 spread.join("  ")
             );
         }
+        self.distances_text(out, run);
         if let Some(held) = &run.held_out_moran {
             let m = &held.moran;
             let _ = writeln!(
@@ -568,6 +641,50 @@ impl Summary {
                 );
             }
         }
+    }
+}
+
+/// The facts of the split that the text summary names, scheme by scheme
+/// (block counts are printed by the caller).
+fn split_text(out: &mut String, split: &serde_json::Map<String, serde_json::Value>) {
+    for (count, per, what) in [
+        (
+            "clusters",
+            "units_per_cluster",
+            "clusters; units per cluster",
+        ),
+        ("groups", "units_per_group", "groups; units per group"),
+    ] {
+        if let (Some(count), Some(per)) = (split.get(count), split.get(per)) {
+            let _ = writeln!(
+                out,
+                "  {count} {what}: median {}, range {}–{}",
+                per["median"], per["min"], per["max"]
+            );
+        }
+    }
+    if let Some(chosen) = split.get("chosen_clusters") {
+        let tried = split
+            .get("candidates")
+            .and_then(|c| c.as_array())
+            .map_or(0, Vec::len);
+        let chosen = match chosen.as_u64() {
+            Some(q) => format!("{q} k-means clusters dealt to the folds"),
+            None => "random folds".to_string(),
+        };
+        let _ = writeln!(
+            out,
+            "  kNNDM chose {chosen} among {tried} candidates, judged on {} units",
+            split.get("evaluation_units").cloned().unwrap_or_default()
+        );
+    }
+    if let (Some(with), Some(total)) = (split.get("units_with_exclusions"), split.get("exclusions"))
+    {
+        let _ = writeln!(
+            out,
+            "  NNDM excluded {total} training units in all from the folds of {with} units (matched: {})",
+            split.get("matched").cloned().unwrap_or_default()
+        );
     }
 }
 
@@ -626,5 +743,55 @@ fn p_value(p: f64) -> String {
         "< 0.0001".into()
     } else {
         format!("{p:.4}")
+    }
+}
+
+impl Summary {
+    /// The nearest-distance lines of a run: how far test units were from
+    /// their training units, and the prediction locations from the data.
+    fn distances_text(&self, out: &mut String, run: &RunSummary) {
+        let length = |v: f64| self.source.length(v);
+        let pooled = run
+            .fold_distances
+            .iter()
+            .find(|d| d.kind == "cv" && d.fold.is_none());
+        let Some(pooled) = pooled else {
+            return;
+        };
+        let medians: Vec<f64> = run
+            .fold_distances
+            .iter()
+            .filter(|d| d.kind == "cv" && d.fold.is_some())
+            .map(DistanceSummary::median)
+            .collect();
+        let per_fold = match (
+            medians.iter().copied().reduce(f64::min),
+            medians.iter().copied().reduce(f64::max),
+        ) {
+            (Some(low), Some(high)) if medians.len() > 1 => {
+                format!("; fold medians {} to {}", length(low), length(high))
+            }
+            _ => String::new(),
+        };
+        let _ = writeln!(
+            out,
+            "  test units to their nearest training unit: median {} (10th–90th percentile {} to {}){per_fold}{}",
+            length(pooled.median()),
+            length(pooled.quantiles[1]),
+            length(pooled.quantiles[5]),
+            pooled
+                .sampled_from
+                .map(|total| format!(", from a seeded sample of {} of {total} units", pooled.n))
+                .unwrap_or_default()
+        );
+        if let Some(prediction) = run.fold_distances.iter().find(|d| d.kind == "prediction") {
+            let _ = writeln!(
+                out,
+                "  prediction locations to the nearest unit: median {} (10th–90th percentile {} to {})",
+                length(prediction.median()),
+                length(prediction.quantiles[1]),
+                length(prediction.quantiles[5]),
+            );
+        }
     }
 }

@@ -145,6 +145,7 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
         &info,
         &job,
         run_spec.strict,
+        false,
         &crate::progress::Silent,
     )?;
     drop(source);
@@ -258,6 +259,7 @@ fn source_spec(run: &AssignedRun, spec: &ScoreSpec) -> Result<RunSpec, Error> {
         model: run.model.clone(),
         model_options: Options::new(),
         exclusion_radius: None,
+        prediction: None,
         repeats: run.repeats as u32,
         seed: run.seed as u64,
         compare_random: false,

@@ -60,6 +60,25 @@ pub enum ResultsRef {
     },
 }
 
+/// Where the model will be used (prediction locations), for distance
+/// matching and the `nearest_distances` table.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "store", rename_all = "lowercase")]
+pub enum PredictionRef {
+    /// A PostGIS table in the source's database.
+    Postgis {
+        /// `schema.table`, or `table` on the search path.
+        table: String,
+        /// Its geometry column; None for the table's only one.
+        geom: Option<String>,
+    },
+    /// A layer of the source GeoPackage.
+    Gpkg {
+        /// The layer.
+        layer: String,
+    },
+}
+
 /// Bounds on every wait of a run.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Limits {
@@ -129,6 +148,10 @@ pub struct RunSpec {
     pub model_options: Options,
     /// Exclusion buffer radius in CRS units, for any scheme.
     pub exclusion_radius: Option<f64>,
+    /// Prediction locations, points or polygons (their representative
+    /// points), in the source's CRS (or transformed by `distance_srid`).
+    #[serde(default)]
+    pub prediction: Option<PredictionRef>,
     /// Repetitions.
     pub repeats: u32,
     /// Seed of the fold assignment.
@@ -180,6 +203,37 @@ pub struct Checked {
 }
 
 impl RunSpec {
+    /// A specification with every setting at its command-line default:
+    /// random folds, OLS, one repetition, seed 1, no buffer, no gates. Set
+    /// the rest with struct update syntax (`RunSpec { scheme: …, ..RunSpec::new(…) }`).
+    pub fn new(source: SourceRef, columns: ColumnSpec, results: ResultsRef) -> RunSpec {
+        RunSpec {
+            source,
+            columns,
+            distance_srid: None,
+            assume_metres: false,
+            strict: false,
+            scheme: "random".into(),
+            scheme_options: Options::new(),
+            model: "ols".into(),
+            model_options: Options::new(),
+            exclusion_radius: None,
+            prediction: None,
+            repeats: 1,
+            seed: 1,
+            compare_random: false,
+            results,
+            job: None,
+            limits: Limits::default(),
+            residual_weights: None,
+            gates: Vec::new(),
+            baseline_runs: DEFAULT_BASELINE_RUNS,
+            skip_unchanged: false,
+            assign_only: false,
+            unseen_levels: UnseenPolicy::default(),
+        }
+    }
+
     /// Checks everything that can be checked without reading data: names,
     /// option values and ranges, the scheme's and the model's options.
     ///
@@ -256,6 +310,38 @@ impl RunSpec {
                 self.limits.wait_s
             )));
         }
+        match (&self.prediction, &self.source) {
+            (Some(PredictionRef::Postgis { table, geom }), SourceRef::Postgis { .. }) => {
+                let (table_schema, name) = crate::adapters::sql::split_qualified(table);
+                if let Some(table_schema) = table_schema {
+                    check_identifier("--prediction-table (schema)", &table_schema)?;
+                }
+                check_identifier("--prediction-table", &name)?;
+                if let Some(geom) = geom {
+                    check_identifier("--prediction-geom", geom)?;
+                }
+            }
+            (Some(PredictionRef::Gpkg { layer }), SourceRef::Gpkg { .. }) => {
+                if layer.trim().is_empty() {
+                    return Err(Error::Usage("--prediction-layer must name a layer".into()));
+                }
+            }
+            (Some(PredictionRef::Postgis { .. }), SourceRef::Gpkg { .. }) => {
+                return Err(Error::Usage(
+                    "--prediction-table reads from PostGIS; for a GeoPackage source name a layer of the same file \
+                     with --prediction-layer"
+                        .into(),
+                ));
+            }
+            (Some(PredictionRef::Gpkg { .. }), SourceRef::Postgis { .. }) => {
+                return Err(Error::Usage(
+                    "--prediction-layer reads a layer of the source GeoPackage; for a PostGIS source name a table \
+                     with --prediction-table SCHEMA.TABLE"
+                        .into(),
+                ));
+            }
+            (None, _) => {}
+        }
         if !(1..=MAX_BASELINE_RUNS).contains(&self.baseline_runs) {
             return Err(Error::Usage(format!(
                 "--baseline-runs must be from 1 to {MAX_BASELINE_RUNS}, got {}",
@@ -268,6 +354,22 @@ impl RunSpec {
         };
         residual_weights.for_points()?;
         let scheme = build_scheme(&self.scheme, &self.scheme_options)?;
+        let needs = scheme.requirements();
+        if needs.prediction_points && self.prediction.is_none() {
+            return Err(Error::Usage(format!(
+                "--scheme {} matches cross-validation to where the model will be used: name those places with \
+                 --prediction-table SCHEMA.TABLE (PostGIS) or --prediction-layer NAME (a layer of the source \
+                 GeoPackage), points or polygons",
+                self.scheme
+            )));
+        }
+        if needs.groups && self.columns.group.is_none() {
+            return Err(Error::Usage(format!(
+                "--scheme {} needs --group-column COL: an integer or text column (e.g. a district code) whose \
+                 groups are kept whole",
+                self.scheme
+            )));
+        }
         let model = build_model(&self.model, &self.model_options)?;
         if let Some(exposure) = &self.columns.exposure {
             if model.family() != Family::Count {
@@ -484,6 +586,7 @@ mod tests {
             model: "ols".into(),
             model_options: Options::new(),
             exclusion_radius: None,
+            prediction: None,
             repeats: 1,
             seed: 1,
             compare_random: false,
@@ -607,5 +710,40 @@ mod tests {
         assert!(spec.check().is_ok());
         spec.model_options.insert("family".into(), "counts".into());
         assert!(spec.check().is_err());
+    }
+
+    #[test]
+    fn schemes_that_need_more_say_so_before_anything_is_opened() {
+        let nndm = |s: &mut RunSpec| {
+            s.scheme = "nndm".into();
+            s.scheme_options.clear();
+        };
+        assert!(refused(nndm).contains("--prediction-table"));
+        assert!(refused(|s| {
+            s.scheme = "group".into();
+            s.scheme_options.clear();
+        })
+        .contains("--group-column"));
+        assert!(refused(|s| {
+            nndm(s);
+            s.prediction = Some(PredictionRef::Gpkg {
+                layer: "where".into(),
+            });
+        })
+        .contains("--prediction-table"));
+        let mut ok = spec();
+        nndm(&mut ok);
+        ok.prediction = Some(PredictionRef::Postgis {
+            table: "hydro.targets".into(),
+            geom: None,
+        });
+        assert!(ok.check().is_ok());
+        assert!(refused(|s| {
+            s.prediction = Some(PredictionRef::Postgis {
+                table: format!("hydro.{}", "t".repeat(64)),
+                geom: None,
+            });
+        })
+        .contains("--prediction-table"));
     }
 }

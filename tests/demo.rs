@@ -107,6 +107,9 @@ fn demo_with_no_arguments_writes_a_geopackage_gdal_opens() {
     .into_iter()
     .chain(
         [
+            "coefficients",
+            "nearest_distances",
+            "fold_distances",
             "inspections",
             "diagnostics",
             "semivariogram",

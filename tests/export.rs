@@ -128,6 +128,15 @@ fn results_of_a_postgis_source_go_to_a_geopackage_through_export() {
                 None,
             ),
         ),
+        (
+            "coefficients",
+            layer("None", pg_count("coefficients"), None),
+        ),
+        ("nearest_distances", layer("None", 0, None)),
+        (
+            "fold_distances",
+            layer("None", pg_count("fold_distances"), None),
+        ),
         ("inspections", layer("None", 0, None)),
         ("semivariogram", layer("None", 0, None)),
         ("variogram_fits", layer("None", 0, None)),

@@ -343,7 +343,7 @@ fn columbus_in_postgis_matches_esda_and_spreg() {
 /// equals esda's over libpysal's 8-nearest-neighbour weights of the same
 /// points and the stored held-out residuals (`tests/python/held_out_moran.py`).
 #[test]
-fn runs_store_the_moran_of_their_held_out_residuals_as_esda_computes_it() {
+fn runs_store_held_out_moran_and_fold_distances_as_esda_and_scipy_compute_them() {
     let work = Workdir::new();
     let source = work.path("meuse.gpkg");
     ogr2ogr(&[
@@ -446,4 +446,65 @@ fn runs_store_the_moran_of_their_held_out_residuals_as_esda_computes_it() {
         );
     }
     assert_eq!(reported, stored.2);
+
+    // The run's fold_distances rows against scipy's nearest neighbours and
+    // numpy's quantiles over the same points and recorded folds.
+    let mut statement = conn
+        .prepare(
+            "SELECT m.x, m.y, f.fold FROM fold_members f
+             JOIN meuse m ON CAST(m.fid AS TEXT) = f.unit_id
+             WHERE f.run_id = ?1 AND f.repetition = 1 ORDER BY m.fid",
+        )
+        .unwrap();
+    let lines: Vec<String> = statement
+        .query_map([&run_id], |row| {
+            Ok(format!(
+                "{}\t{}\t{}",
+                row.get::<_, f64>(0)?,
+                row.get::<_, f64>(1)?,
+                row.get::<_, i64>(2)?
+            ))
+        })
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    let reference: serde_json::Value = serde_json::from_str(&common::python_script(
+        "python/fold_distances.py",
+        &[],
+        &(lines.join("\n") + "\n"),
+    ))
+    .unwrap();
+    let mut statement = conn
+        .prepare(
+            "SELECT coalesce(CAST(fold AS TEXT), 'all'), minimum, p10, p25, median, p75, p90, maximum, mean,
+                    sampled_from
+             FROM fold_distances WHERE run_id = ?1 AND kind = 'cv' ORDER BY fold",
+        )
+        .unwrap();
+    let rows: Vec<(String, Vec<f64>, Option<i64>)> = statement
+        .query_map([&run_id], |row| {
+            Ok((
+                row.get(0)?,
+                (1..=8).map(|i| row.get(i)).collect::<Result<_, _>>()?,
+                row.get(9)?,
+            ))
+        })
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert_eq!(
+        rows.len(),
+        1 + summary["runs"][0]["folds"].as_array().unwrap().len()
+    );
+    for (fold, values, sampled_from) in rows {
+        assert_eq!(sampled_from, None, "155 units are measured whole");
+        let want = reference[&fold].as_array().expect("reference fold");
+        for (got, want) in values.iter().zip(want) {
+            let want = want.as_f64().unwrap();
+            assert!(
+                (got - want).abs() <= 1e-9 * want.abs().max(1.0),
+                "fold {fold}: {got} vs scipy/numpy {want}"
+            );
+        }
+    }
 }

@@ -35,6 +35,7 @@ fn dataset(names: &[&str], columns: &[Vec<f64>], target: Vec<f64>) -> Dataset {
         groups: None,
         exposure: None,
         categorical: Vec::new(),
+        geometries: None,
     }
 }
 

@@ -398,3 +398,72 @@ fn a_store_without_a_newer_table_is_read_as_it_is() {
     }
     assert!(!stores.pg.has_result_relation("coefficients"));
 }
+
+#[test]
+fn nearest_distances_of_a_run_with_prediction_locations_are_reported_on_both_stores() {
+    let stores = units_stores("report_distances");
+    // 10 × 10 prediction points 70 m apart from (500010, 5000010): inside the
+    // units' area and up to about 100 m beyond it.
+    stores.pg.script(
+        "CREATE TABLE {s}.targets (id integer PRIMARY KEY, geom geometry(Point, 32631));
+         INSERT INTO {s}.targets
+         SELECT 1 + 10*i + j, ST_SetSRID(ST_MakePoint(500010 + 70*i, 5000010 + 70*j), 32631)
+         FROM generate_series(0, 9) i, generate_series(0, 9) j;",
+    );
+    common::gdal::ogr2ogr(
+        stores.workdir.root(),
+        &[
+            "-f",
+            "GPKG",
+            "-update",
+            "source.gpkg",
+            &format!("PG:{}", db_uri()),
+            &format!("{}.targets", stores.pg.source),
+            "-nln",
+            "targets",
+        ],
+    );
+    for (store, extra) in [
+        (Store::Postgis, ["--prediction-table", "{s}.targets"]),
+        (Store::Gpkg, ["--prediction-layer", "targets"]),
+    ] {
+        let outcome = stores.run_one(store, &[UNITS_GRID, &extra].concat());
+        assert_eq!(outcome.code(), 0, "{}", outcome.stderr());
+        let run = outcome.run_id(0);
+        let file = format!("distances-{store:?}.html");
+        let doc = ok_json(&geofold(
+            &stores.workdir,
+            "report",
+            store_args(&stores, store, "results.gpkg"),
+            &["--run", &run, "--to", &file, "--json"],
+        ));
+        assert_sections(&doc, &["distances"]);
+        // The medians as PostgreSQL's percentile_cont computes them over the
+        // stored distances (the GeoPackage run stores the same distances).
+        let medians = stores.pg.rows(
+            "SELECT kind, percentile_cont(0.5) WITHIN GROUP (ORDER BY distance)
+             FROM {r}.nearest_distances WHERE (kind = 'cv' AND repetition = 1) OR kind = 'prediction'
+             GROUP BY kind ORDER BY kind",
+        );
+        assert_eq!(medians.len(), 2, "{medians:?}");
+        let median = |kind: &str| -> String {
+            let value: f64 = medians.iter().find(|r| r[0] == kind).unwrap()[1]
+                .parse()
+                .unwrap();
+            geofold::render::text::significant(value, 4)
+        };
+        let page = std::fs::read_to_string(stores.workdir.path(&file)).unwrap();
+        assert_contains(
+            &page,
+            &[
+                &format!("nearest training unit: {} m (36 test units)", median("cv")),
+                &format!(
+                    "nearest observed unit: {} m (100 places)",
+                    median("prediction")
+                ),
+                "W (nearest-distance match)",
+            ],
+        );
+        dom_without_console_errors(&stores.workdir.path(&file));
+    }
+}

@@ -117,9 +117,20 @@ impl SourceInfo {
 
 /// A length in a CRS unit, in words (metres become m or km).
 pub fn describe_length(value: f64, unit: Option<&str>) -> String {
+    // Four significant digits (at most three decimals), trailing zeros dropped.
     let plain = |v: f64| {
-        let text = format!("{v:.3}");
-        text.trim_end_matches('0').trim_end_matches('.').to_string()
+        let magnitude = if v == 0.0 {
+            0
+        } else {
+            v.abs().log10().floor() as i32
+        };
+        let decimals = (3 - magnitude).clamp(0, 3) as usize;
+        let text = format!("{v:.decimals$}");
+        if text.contains('.') {
+            text.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            text
+        }
     };
     let metres =
         unit.is_some_and(|u| ["metre", "meter", "m"].contains(&u.to_ascii_lowercase().as_str()));
@@ -149,6 +160,22 @@ pub trait Source {
     /// # Errors
     /// Geometries that are not polygons; database or file errors.
     fn contiguity(&mut self, data: &Dataset, rule: Contiguity) -> Result<Vec<(u32, u32)>, Error>;
+    /// Reads the prediction locations `table` (a PostGIS table in the
+    /// source's database, or a layer of the source GeoPackage) with its
+    /// geometry column `geom` (None: its only one), as representative points
+    /// in the distance CRS. Their SRID must be the source's, unless
+    /// `distance_srid` transforms both.
+    ///
+    /// # Errors
+    /// [`Error::NotFound`] (or a missing-file error) for a missing table,
+    /// layer or column (exit 66); [`Error::Input`] for another SRID, a
+    /// geometry that cannot be decoded, or no usable location (exit 65).
+    fn read_locations(
+        &mut self,
+        table: &str,
+        geom: Option<&str>,
+        distance_srid: Option<i32>,
+    ) -> Result<Locations, Error>;
 }
 
 /// Turns pairs of source ids into sorted, unique pairs of dataset indices,
@@ -168,6 +195,21 @@ pub fn index_pairs(
     found.sort_unstable();
     found.dedup();
     found
+}
+
+/// Prediction locations as read.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Locations {
+    /// Where they came from: `schema.table.geom` or `file.gpkg:layer`.
+    pub table: String,
+    /// Each usable row's representative point, in the distance CRS, in the
+    /// order the rows came (nothing depends on that order).
+    #[serde(skip)]
+    pub points: Vec<[f64; 2]>,
+    /// How many were read (the number of points).
+    pub count: usize,
+    /// Rows with a NULL or empty geometry, skipped.
+    pub skipped: u64,
 }
 
 /// A map layer a store made for a job.
@@ -605,6 +647,9 @@ mod tests {
     fn lengths_are_described_in_the_crs_unit() {
         assert_eq!(describe_length(4000.0, Some("metre")), "4 km");
         assert_eq!(describe_length(800.0, Some("metre")), "800 m");
+        assert_eq!(describe_length(903.094, Some("metre")), "903.1 m");
+        assert_eq!(describe_length(208_152.0, Some("metre")), "208.2 km");
+        assert_eq!(describe_length(1045.0, Some("metre")), "1.045 km");
         assert_eq!(describe_length(2.5, None), "2.5 CRS units");
         assert_eq!(
             describe_length(300.0, Some("US survey foot")),

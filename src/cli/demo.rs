@@ -111,6 +111,7 @@ pub fn run(args: &DemoArgs) -> Result<(Summary, String), Error> {
         model: "ols".into(),
         model_options: Options::new(),
         exclusion_radius: None,
+        prediction: None,
         repeats: 1,
         seed: args.seed,
         compare_random: true,

@@ -33,8 +33,12 @@ EXIT STATUS
       (constant or collinear feature, separation, no convergence), a target that does not
       fit the model (not 0/1, a negative or non-integer count, a non-positive exposure), a
       held-out level unseen in training, predictions for geofold score that miss, repeat or
-      misplace units, a geometry column mixing SRIDs, a results store geofold did not make
-  66  the source table, schema, column, file or layer (or the job file) does not exist
+      misplace units, a geometry column mixing SRIDs, a results store geofold did not make;
+      folds that cannot be built (a block larger than the study area, fewer blocks, clusters
+      or groups than folds, a radius or matching leaving too few training units), prediction
+      locations in another SRID, a group column that is not integer or text
+  66  the source table, schema, column, file or layer, the prediction table or layer, or the
+      job file does not exist
   69  the database server is unreachable (after retrying one that is not up yet), or PostGIS
       is not installed
   70  internal error (a bug: please report it)

@@ -17,7 +17,7 @@ use crate::error::Error;
 use crate::pipeline::Outcome;
 use crate::progress::Progress;
 use crate::spec::{
-    trimmed, Limits, ResultsRef, RunSpec, SourceRef, DEFAULT_LOCK_TIMEOUT_S,
+    trimmed, Limits, PredictionRef, ResultsRef, RunSpec, SourceRef, DEFAULT_LOCK_TIMEOUT_S,
     DEFAULT_STATEMENT_TIMEOUT_S,
 };
 
@@ -76,18 +76,61 @@ pub struct SourceArgs {
 /// How to validate.
 #[derive(Debug, Clone, Args)]
 pub struct ValidationArgs {
-    /// Fold scheme (grid: square blocks; random: plain k-fold).
+    /// Fold scheme: grid (square or hexagonal blocks), random (plain k-fold), kmeans (clusters
+    /// of the units' points), group (the groups of --group-column kept whole), loo
+    /// (leave-one-out; spatial with --exclusion-radius), nndm and knndm (folds matched to the
+    /// prediction locations' nearest distances).
     #[arg(long, default_value = "grid", value_name = "SCHEME")]
     pub scheme: String,
-    /// Block side for --scheme grid, in CRS units (metres for a projected CRS).
+    /// Block size for --scheme grid, in CRS units (metres for a projected CRS): the side of a
+    /// square, or the distance between opposite sides of a hexagon.
     #[arg(long, value_name = "LENGTH")]
     pub block_size: Option<f64>,
-    /// Grid origin X,Y in CRS units (default 0,0); cells are [x0 + i·size, x0 + (i+1)·size).
+    /// Grid origin X,Y in CRS units (default 0,0): a square's corner, cells
+    /// [x0 + i·size, x0 + (i+1)·size); or the centre of one hexagon.
     #[arg(long, value_name = "X,Y", allow_hyphen_values = true)]
     pub grid_origin: Option<String>,
+    /// Block shape for --scheme grid: square (default) or hex (flat-topped hexagons, two sides
+    /// parallel to the x axis).
+    #[arg(long, value_name = "SHAPE")]
+    pub block_shape: Option<String>,
+    /// How --scheme grid deals blocks to folds: random (default; seeded shuffle, each block to
+    /// the fold with the fewest units) or systematic (a fixed pattern over block columns and
+    /// rows in which blocks sharing an edge never share a fold; hexagons need 3 folds or more).
+    #[arg(long, value_name = "RULE")]
+    pub deal: Option<String>,
     /// Number of folds (2 to 1000; default 5).
     #[arg(long, value_name = "K")]
     pub folds: Option<u32>,
+    /// Number of k-means clusters for --scheme kmeans (default: one per fold); more clusters
+    /// than folds are dealt to the folds balancing units.
+    #[arg(long, value_name = "M")]
+    pub clusters: Option<u32>,
+    /// k-means starts for --scheme kmeans (1 to 1000, default 10): the clustering with the
+    /// smallest within-cluster sum of squares is kept.
+    #[arg(long, value_name = "N")]
+    pub starts: Option<u32>,
+    /// For --scheme nndm: the distance (CRS units) up to which the distributions are matched.
+    /// Default: the largest distance from a prediction location to the data (the whole
+    /// distribution). A variogram range of the target is a common choice.
+    #[arg(long, value_name = "LENGTH")]
+    pub match_range: Option<f64>,
+    /// For --scheme nndm: the smallest share (0 to 1, default 0.5) of the other units each
+    /// training set keeps, however far the matching would exclude.
+    #[arg(long, value_name = "SHARE")]
+    pub min_training_share: Option<f64>,
+    /// Prediction locations in PostGIS (points or polygons, in the source's SRID or transformed
+    /// by --distance-srid): where the model will be used. Needed by nndm and knndm; with any
+    /// scheme it adds the nearest_distances rows and the match statistic W.
+    #[arg(long, value_name = "SCHEMA.TABLE", conflicts_with = "prediction_layer")]
+    pub prediction_table: Option<String>,
+    /// Geometry column of --prediction-table (default: its only geometry column).
+    #[arg(long, value_name = "COLUMN", requires = "prediction_table")]
+    pub prediction_geom: Option<String>,
+    /// Prediction locations as a layer of the source GeoPackage (points or polygons, in the
+    /// units' CRS).
+    #[arg(long, value_name = "NAME")]
+    pub prediction_layer: Option<String>,
     /// Exclusion buffer, any scheme: training units within this distance (CRS units) of a
     /// fold's test units are left out of that fold's training set.
     #[arg(long, value_name = "LENGTH")]
@@ -306,6 +349,34 @@ impl RunArgs {
         if let Some(folds) = v.folds {
             scheme_options.insert("folds".into(), folds.into());
         }
+        if let Some(shape) = &v.block_shape {
+            scheme_options.insert("block-shape".into(), shape.trim().into());
+        }
+        if let Some(deal) = &v.deal {
+            scheme_options.insert("deal".into(), deal.trim().into());
+        }
+        if let Some(clusters) = v.clusters {
+            scheme_options.insert("clusters".into(), clusters.into());
+        }
+        if let Some(starts) = v.starts {
+            scheme_options.insert("starts".into(), starts.into());
+        }
+        if let Some(range) = v.match_range {
+            scheme_options.insert("match-range".into(), serde_json::json!(range));
+        }
+        if let Some(share) = v.min_training_share {
+            scheme_options.insert("min-training-share".into(), serde_json::json!(share));
+        }
+        let prediction = match (&v.prediction_table, &v.prediction_layer) {
+            (Some(table), _) => Some(PredictionRef::Postgis {
+                table: table.trim().to_string(),
+                geom: v.prediction_geom.as_ref().map(|g| g.trim().to_string()),
+            }),
+            (None, Some(layer)) => Some(PredictionRef::Gpkg {
+                layer: layer.trim().to_string(),
+            }),
+            (None, None) => None,
+        };
         let mut model_options = Options::new();
         let numbers = [
             ("penalty", v.penalty),
@@ -348,6 +419,7 @@ impl RunArgs {
             model,
             model_options,
             exclusion_radius: v.exclusion_radius,
+            prediction,
             repeats: v.repeats,
             seed: v.seed,
             compare_random: v.also_random,

@@ -5,6 +5,7 @@
 pub mod diagnostics;
 pub mod folds;
 pub mod geometry;
+pub mod matching;
 pub mod metrics;
 pub mod models;
 pub mod neighbours;

@@ -127,7 +127,44 @@ impl NeighbourIndex {
     pub fn nearest_one(&self, at: [f64; 2], keep: impl Fn(u32) -> bool) -> Option<Neighbour> {
         self.nearest(at, 1, keep).into_iter().next()
     }
+
+    /// The distance from `at` to the nearest point for which `keep(index)` is
+    /// true, visiting points nearest first and giving up after `budget` points
+    /// that are not kept: `Ok(Some(d))`, `Ok(None)` when no point is kept, or
+    /// `Err(BudgetSpent)`. Only the distance is returned, so ties do not matter.
+    pub fn nearest_distance_within(
+        &self,
+        at: [f64; 2],
+        keep: impl Fn(u32) -> bool,
+        budget: usize,
+    ) -> Result<Option<f64>, BudgetSpent> {
+        let mut rejected = 0usize;
+        for (entry, distance_2) in self.tree().nearest_neighbor_iter_with_distance_2(&at) {
+            if keep(entry.data) {
+                return Ok(Some(distance_2.sqrt()));
+            }
+            rejected += 1;
+            if rejected >= budget {
+                return Err(BudgetSpent);
+            }
+        }
+        Ok(None)
+    }
+
+    /// The squared distance from `at` to the bounding box of the indexed
+    /// points (0 inside it; infinite when nothing is indexed).
+    pub fn envelope_distance_2(&self, at: [f64; 2]) -> f64 {
+        if self.is_empty() {
+            return f64::INFINITY;
+        }
+        self.tree().root().envelope().distance_2(&at)
+    }
 }
+
+/// [`NeighbourIndex::nearest_distance_within`] visited its budget of points
+/// without finding one that is kept.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct BudgetSpent;
 
 #[cfg(test)]
 mod tests {

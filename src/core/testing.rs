@@ -1,6 +1,6 @@
 //! Fixture builders for the core's unit tests.
 
-use crate::core::folds::SchemeInput;
+use crate::core::folds::{FoldRng, SchemeInput};
 use crate::core::neighbours::NeighbourIndex;
 use crate::core::units::{Dataset, GeometryKinds, IdKind, Skipped, UnitId};
 
@@ -23,6 +23,7 @@ pub fn points_dataset(points: &[[f64; 2]]) -> Dataset {
         groups: None,
         exposure: None,
         categorical: Vec::new(),
+        geometries: None,
     }
 }
 
@@ -48,6 +49,8 @@ impl Points {
             index: &self.index,
             groups: None,
             prediction_points: None,
+            geometries: None,
+            exclusion_radius: None,
         }
     }
 }
@@ -73,6 +76,7 @@ pub fn table_dataset(
         groups: None,
         exposure: None,
         categorical: Vec::new(),
+        geometries: None,
     }
 }
 
@@ -99,4 +103,29 @@ pub fn columbus() -> Dataset {
         &rows.iter().map(|r| r.crime).collect::<Vec<_>>(),
         &points,
     )
+}
+
+/// `clusters` tight clusters of `per` points each (squares of side `spread`
+/// at seeded places in the 1000 × 1000 square from the origin).
+pub fn clustered_points(seed: u64, clusters: usize, per: usize, spread: f64) -> Vec<[f64; 2]> {
+    let mut rng = FoldRng::new(seed, 0);
+    let mut points = Vec::with_capacity(clusters * per);
+    for _ in 0..clusters {
+        let centre = [rng.unit_interval() * 1000.0, rng.unit_interval() * 1000.0];
+        for _ in 0..per {
+            points.push([
+                centre[0] + rng.unit_interval() * spread,
+                centre[1] + rng.unit_interval() * spread,
+            ]);
+        }
+    }
+    points
+}
+
+/// A `side` × `side` grid of points over the 1000 × 1000 square, edges included.
+pub fn square_grid(side: usize) -> Vec<[f64; 2]> {
+    let step = 1000.0 / (side - 1) as f64;
+    (0..side * side)
+        .map(|i| [(i % side) as f64 * step, (i / side) as f64 * step])
+        .collect()
 }

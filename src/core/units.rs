@@ -200,6 +200,9 @@ pub struct Dataset {
     pub exposure: Option<Vec<f64>>,
     /// The text features, one-hot encoded into `features` (empty when none).
     pub categorical: Vec<Categorical>,
+    /// Each unit's geometry (distance CRS), kept only when the fold scheme
+    /// draws from it (see [`UnitCollector::with_geometries`]).
+    pub geometries: Option<Vec<Geometry<f64>>>,
 }
 
 /// The group of each unit (e.g. a district code), as codes into sorted names.
@@ -327,9 +330,18 @@ pub struct UnitCollector {
     text: Vec<bool>,
     /// Per text feature, its levels in first-seen order (codes are positions).
     levels: Vec<HashMap<String, u32>>,
+    keep_geometries: bool,
+    geometries: Vec<Geometry<f64>>,
 }
 
 impl UnitCollector {
+    /// Also keeps each used row's geometry (for schemes that draw regions
+    /// from the units' shapes; costs the geometries' size in memory).
+    pub fn with_geometries(mut self, keep: bool) -> UnitCollector {
+        self.keep_geometries = keep;
+        self
+    }
+
     /// Also counts every row pushed into `counter`, which another thread may
     /// read while the rows arrive (a progress display).
     pub fn with_row_counter(
@@ -388,6 +400,8 @@ impl UnitCollector {
             row_counter: None,
             text: vec![false; feature_names.len()],
             levels: Vec::new(),
+            keep_geometries: false,
+            geometries: Vec::new(),
         }
     }
 
@@ -516,6 +530,9 @@ impl UnitCollector {
             | Geometry::Triangle(_) => self.geometry_kinds.polygons = true,
             _ => self.geometry_kinds.other = true,
         }
+        if self.keep_geometries {
+            self.geometries.push(geometry);
+        }
         self.rows.push((id, point, target));
         let mut texts = extras.texts.into_iter().flatten();
         let mut k = 0;
@@ -621,6 +638,14 @@ impl UnitCollector {
             self.levels,
             features,
         )?;
+        let geometries = self.keep_geometries.then(|| {
+            let mut kept: Vec<Option<Geometry<f64>>> =
+                self.geometries.into_iter().map(Some).collect();
+            order
+                .iter()
+                .filter_map(|&index| kept.get_mut(index).and_then(Option::take))
+                .collect()
+        });
         Ok(Dataset {
             ids,
             points,
@@ -634,6 +659,7 @@ impl UnitCollector {
             groups,
             exposure,
             categorical,
+            geometries,
         })
     }
 }

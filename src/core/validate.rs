@@ -28,8 +28,10 @@
 
 use serde::Serialize;
 
+use crate::core::diagnostics::fold_distances::DistanceSummary;
 use crate::core::diagnostics::held_out::HeldOutMoran;
 use crate::core::folds::{exclude_within, FoldRng, FoldScheme, FoldSet, SchemeInput};
+use crate::core::matching::{cv_distances, Matching};
 use crate::core::metrics::{spreads, Family, Scores, Spread};
 use crate::core::models::{FitError, Fitted, Model, TrainingSet};
 use crate::core::parallel::parallel_map;
@@ -103,6 +105,12 @@ pub struct RunOutcome {
     /// Moran's I of the held-out residuals (set by the pipeline; None when
     /// it could not be computed, with a warning).
     pub held_out_moran: Option<HeldOutMoran>,
+    /// Test-to-training nearest distances of repetition 1, pooled then per
+    /// fold, and the prediction distances (set by the pipeline).
+    pub fold_distances: Vec<DistanceSummary>,
+    /// Distance matching against the prediction locations, when the run has
+    /// them (set by the caller, who holds the locations).
+    pub matching: Option<Matching>,
 }
 
 impl RunOutcome {
@@ -136,7 +144,9 @@ pub fn check_repeats(repeats: u32) -> Result<(), Error> {
 
 /// The folds of every repetition, with the exclusion buffer applied. A
 /// scheme that draws nothing at random gives the same folds every time, so it
-/// is assigned once and repeated.
+/// is assigned once and repeated. When the input has prediction locations,
+/// each fold set's CV distances ([`FoldSet::cv_distances`]) are filled after
+/// the buffer.
 ///
 /// # Errors
 /// [`Error::Folds`] (or [`Error::Usage`]) when the scheme cannot split the units.
@@ -155,9 +165,63 @@ pub fn assign_folds(input: &SchemeInput<'_>, plan: &Plan<'_>) -> Result<Vec<Fold
         if let Some(radius) = plan.exclusion_radius {
             exclude_within(&mut set, input, radius);
         }
+        if input.prediction_points.is_some() {
+            let clock = std::time::Instant::now();
+            set.cv_distances = Some(cv_distances(&set, input.points, input.index));
+            tracing::debug!(
+                elapsed_ms = clock.elapsed().as_millis() as u64,
+                "test-to-training nearest distances"
+            );
+        }
         sets.push(set);
     }
     Ok(sets)
+}
+
+/// Checks, before anything is recorded, that every fold of every repetition
+/// keeps at least `needed` training units (what the model needs with the
+/// data's features), so a radius or a matching that leaves too few stops the
+/// run with nothing written.
+///
+/// # Errors
+/// [`Error::Folds`] naming the first such fold (lowest repetition, then fold),
+/// its numbers and what to change.
+pub fn check_training(
+    sets: &[FoldSet],
+    units: usize,
+    needed: usize,
+    model: &str,
+    exclusion_radius: Option<f64>,
+) -> Result<(), Error> {
+    for (repetition, set) in sets.iter().enumerate() {
+        let sizes = set.fold_sizes();
+        for (fold, &test) in sizes.iter().enumerate() {
+            let excluded = set.excluded_from(fold as u32).len();
+            let training = units.saturating_sub(test + excluded);
+            if training >= needed {
+                continue;
+            }
+            let change = if excluded > 0 {
+                match exclusion_radius {
+                    Some(radius) => format!(
+                        "the exclusion radius {radius} leaves too few: use a smaller --exclusion-radius"
+                    ),
+                    None => "the scheme's exclusions leave too few: raise --min-training-share or use a smaller \
+                             --match-range"
+                        .to_string(),
+                }
+            } else {
+                "use fewer --folds, more units, or fewer features".to_string()
+            };
+            return Err(Error::Folds(format!(
+                "fold {} of repetition {} keeps {training} training units ({units} units, {test} tested, {excluded} \
+                 excluded), fewer than the {needed} that {model} needs; {change}",
+                fold + 1,
+                repetition + 1
+            )));
+        }
+    }
+    Ok(())
 }
 
 /// The held-out predictions of one fold and what its fit reported.
@@ -290,6 +354,8 @@ pub fn score_predictions(data: &Dataset, family: Family, predicted: Vec<Predicte
         baseline: family.score(&baseline_pairs),
         notes: Vec::new(),
         held_out_moran: None,
+        fold_distances: Vec::new(),
+        matching: None,
     }
 }
 
@@ -331,6 +397,8 @@ pub fn assigned(data: &Dataset, family: Family, sets: Vec<FoldSet>) -> RunOutcom
         baseline: empty,
         notes: Vec::new(),
         held_out_moran: None,
+        fold_distances: Vec::new(),
+        matching: None,
     }
 }
 

@@ -11,8 +11,8 @@ use crate::error::{exit, Error, Location};
 use crate::results::rows::Owned;
 use crate::results::{
     TableDef, COEFFICIENTS, CORRELOGRAM, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS,
-    FOLD_SCORE_VALUES, HELD_OUT, INSPECTIONS, RUNS, RUN_SCORE_VALUES, SEMIVARIOGRAM,
-    UNIT_SUMMARIES, VARIOGRAM_FITS,
+    FOLD_SCORE_VALUES, HELD_OUT, INSPECTIONS, NEAREST_DISTANCES, RUNS, RUN_SCORE_VALUES,
+    SEMIVARIOGRAM, UNIT_SUMMARIES, VARIOGRAM_FITS,
 };
 
 /// Which run to read.
@@ -177,13 +177,14 @@ pub fn load(
         }
     }
     let diagnostics = moran_rows(store, &id)?;
-    let (inspection, coefficients) = if reading.job {
+    let (inspection, coefficients, nearest_distances) = if reading.job {
         (
             latest_inspection(store, &run.job)?,
             coefficient_rows(store, &id)?,
+            distance_rows(store, &id)?,
         )
     } else {
-        (None, Vec::new())
+        (None, Vec::new(), (Vec::new(), Vec::new()))
     };
     let mut stored = StoredRun {
         crs: store.crs(run.distance_srid)?,
@@ -198,12 +199,35 @@ pub fn load(
         regions: Vec::new(),
         diagnostics,
         coefficients,
+        nearest_distances,
         inspection,
     };
     if reading.units {
         read_units(store, &mut stored)?;
     }
     Ok(stored)
+}
+
+/// `nearest_distances` of a run: cv distances of repetition 1 and prediction
+/// distances, each ascending.
+fn distance_rows(store: &mut dyn Store, run: &[String]) -> Result<(Vec<f64>, Vec<f64>), Error> {
+    let (mut cv, mut prediction) = (Vec::new(), Vec::new());
+    store.read_rows(&NEAREST_DISTANCES, "run_id", run, &mut |values| {
+        let row = Row::new(&NEAREST_DISTANCES, &values);
+        match (
+            row.text("kind").as_deref(),
+            row.int("repetition"),
+            row.float("distance"),
+        ) {
+            (Some("cv"), Some(1), Some(d)) => cv.push(d),
+            (Some("prediction"), _, Some(d)) => prediction.push(d),
+            _ => {}
+        }
+        Ok(())
+    })?;
+    cv.sort_by(f64::total_cmp);
+    prediction.sort_by(f64::total_cmp);
+    Ok((cv, prediction))
 }
 
 /// `coefficients` rows of a run, by repetition, fold and term.

@@ -317,6 +317,10 @@ pub struct StoredRun {
     /// Each fold's fitted terms: (repetition, fold, term, estimate), by
     /// repetition, fold and term (read for the report).
     pub coefficients: Vec<(u32, u32, String, f64)>,
+    /// Nearest distances of a run with prediction locations (read for the
+    /// report): test unit to nearest training unit in repetition 1, and
+    /// prediction location to nearest unit, each ascending; empty otherwise.
+    pub nearest_distances: (Vec<f64>, Vec<f64>),
     /// The job's latest inspection, if any.
     pub inspection: Option<InspectionRecord>,
 }

@@ -25,9 +25,11 @@ use crate::gates::{choose_baseline, evaluate, Gate as GateRule, Limit, Verdict};
 use crate::pipeline::{BASELINE_RUNS_KEY, GATES_KEY};
 use crate::render::report::input::{
     Better, Comparison, Correlogram, CorrelogramBin, FittedVariogram, FoldCoefficient, FoldScores,
-    Gate, HistoryPoint, ReportInput, ResidualMoran, RunFacts, Score, ScoreDefinition, ScoreHistory,
-    ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin, VariogramModel,
+    Gate, HistoryPoint, NearestDistances, ReportInput, ResidualMoran, RunFacts, Score,
+    ScoreDefinition, ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin,
+    VariogramModel,
 };
+use crate::results::rows::MATCH_SCORE;
 
 /// How a stored score name is shown: `rmse` → `RMSE`, `r2` → `R²`.
 pub fn score_label(name: &str) -> String {
@@ -39,6 +41,7 @@ pub fn score_label(name: &str) -> String {
         "brier" => "Brier score".to_string(),
         "roc_auc" => "ROC AUC".to_string(),
         "poisson_deviance" => "Poisson deviance".to_string(),
+        MATCH_SCORE => "W (nearest-distance match)".to_string(),
         other => other.to_string(),
     }
 }
@@ -268,13 +271,24 @@ fn scores(stored: &StoredRun, target_unit: &str) -> ScoreTable {
                 let def = score_def(name);
                 ScoreDefinition {
                     name: score_label(name),
-                    unit: score_unit(name, target_unit),
+                    unit: if name == MATCH_SCORE {
+                        distance_unit(&stored.crs)
+                    } else {
+                        score_unit(name, target_unit)
+                    },
                     better: match def.map(|d| d.better) {
                         Some(ScoreBetter::Higher) => Better::Higher,
                         Some(ScoreBetter::Zero) => Better::NearZero,
                         _ => Better::Lower,
                     },
-                    description: def.map_or_else(String::new, |d| d.about.to_string()),
+                    description: match def {
+                        Some(d) => d.about.to_string(),
+                        None if name == MATCH_SCORE => "how far the test units' nearest-distance \
+                            distribution lies from the prediction locations' (Wasserstein-1); 0 is \
+                            a perfect match"
+                            .to_string(),
+                        None => String::new(),
+                    },
                 }
             })
             .collect(),
@@ -561,7 +575,14 @@ pub fn report_input(stored: &StoredRun, target_unit: &str) -> ReportInput {
         held_out_moran: held_out_moran(stored),
         semivariogram,
         correlogram,
-        nearest_distances: None,
+        nearest_distances: {
+            let (cv, prediction) = &stored.nearest_distances;
+            (!cv.is_empty() || !prediction.is_empty()).then(|| NearestDistances {
+                distance_unit: distance_unit(&stored.crs),
+                cross_validation: cv.clone(),
+                prediction: prediction.clone(),
+            })
+        },
         history: history(stored, names.first().map(String::as_str), target_unit),
     }
 }

@@ -357,7 +357,11 @@ pub const FOLD_REGIONS: TableDef = TableDef {
         col("run_id", RunId, "the run"),
         col("repetition", Int, "repetition, from 1"),
         col("fold", Int, "fold, from 1"),
-        col("kind", Text, "what the region is: block, …"),
+        col(
+            "kind",
+            Text,
+            "what the region is: block, hexagon, cluster, group, group hull, disc or fold",
+        ),
         col("label", Text, "a label unique within the repetition"),
         col("units", Int, "units inside it"),
         col("srid", Int, "SRID of the geometry (the run's distance SRID)"),
@@ -376,6 +380,53 @@ pub const FOLD_EXCLUSIONS: TableDef = TableDef {
         col("repetition", Int, "repetition, from 1"),
         col("fold", Int, "fold, from 1"),
         col("unit_id", Text, "the excluded unit's source id, as text"),
+    ],
+};
+
+/// Summaries of the test-to-training nearest distances of every run.
+pub const FOLD_DISTANCES: TableDef = TableDef {
+    name: "fold_distances",
+    about: "geofold: how far test units are from the nearest unit they were trained on, per fold and over all folds of repetition 1 (kind cv), and how far the prediction locations are from the data (kind prediction), as quantiles; samples beyond 5,000 units per fold and 20,000 over all say how many units they came from",
+    keying: Keying::Serial("distance_id"),
+    belongs_to_run: true,
+    columns: &[
+        col("run_id", RunId, "the run"),
+        col("kind", Text, "cv (test units to their nearest training unit) or prediction (prediction locations to the nearest unit)"),
+        opt("fold", Int, "the fold, from 1; NULL for all folds together and for prediction rows"),
+        col("n", BigInt, "distances summarised"),
+        opt("sampled_from", BigInt, "units a seeded sample was drawn from; NULL when every unit was measured"),
+        col("minimum", Float, "smallest distance (CRS units of the run's distance SRID)"),
+        col("p10", Float, "10th percentile (linear interpolation, numpy's default)"),
+        col("p25", Float, "25th percentile"),
+        col("median", Float, "median"),
+        col("p75", Float, "75th percentile"),
+        col("p90", Float, "90th percentile"),
+        col("maximum", Float, "largest distance"),
+        col("mean", Float, "mean distance"),
+    ],
+};
+
+/// Nearest-neighbour distances of runs with prediction locations.
+pub const NEAREST_DISTANCES: TableDef = TableDef {
+    name: "nearest_distances",
+    about: "geofold: nearest-neighbour distances of runs given prediction locations: kind cv, each unit to the nearest unit of its fold's training set in each repetition; kind prediction, each prediction location to the nearest unit (once per run); the run score w_nnd is the Wasserstein-1 distance between the two",
+    keying: Keying::PerUnit,
+    belongs_to_run: false,
+    columns: &[
+        col("run_id", RunId, "the run"),
+        opt(
+            "repetition",
+            Int,
+            "repetition, from 1 (cv rows); NULL for prediction rows, which do not depend on it",
+        ),
+        col("kind", Text, "cv or prediction"),
+        opt("fold", Int, "the unit's test fold, from 1 (cv rows); NULL for prediction rows"),
+        opt("unit_id", Text, "the unit's source id, as text (cv rows); NULL for prediction rows"),
+        opt(
+            "distance",
+            Float,
+            "the distance in CRS units (the run's distance SRID); NULL when a fold has no training unit",
+        ),
     ],
 };
 
@@ -538,6 +589,8 @@ pub const TABLES: &[&TableDef] = &[
     &COEFFICIENTS,
     &FOLD_REGIONS,
     &FOLD_EXCLUSIONS,
+    &NEAREST_DISTANCES,
+    &FOLD_DISTANCES,
     &JOBS,
     &INSPECTIONS,
     &DIAGNOSTICS,

@@ -7,9 +7,10 @@ use serde::Serialize;
 use uuid::Uuid;
 
 use super::{
-    TableDef, COEFFICIENTS, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS, FOLD_SCORE_VALUES,
-    HELD_OUT, RUN_SCORE_VALUES, UNIT_SUMMARIES,
+    TableDef, COEFFICIENTS, DIAGNOSTICS, FOLDS, FOLD_DISTANCES, FOLD_EXCLUSIONS, FOLD_REGIONS,
+    FOLD_SCORE_VALUES, HELD_OUT, NEAREST_DISTANCES, RUN_SCORE_VALUES, UNIT_SUMMARIES,
 };
+use crate::core::diagnostics::fold_distances::DistanceSummary;
 use crate::core::diagnostics::moran::{Inference, Moran};
 use crate::core::units::{Dataset, UnitId};
 use crate::core::validate::{unit_summary, RunOutcome};
@@ -167,7 +168,13 @@ impl Stage {
 
     /// Whether the write has `table`'s rows.
     fn writes(self, table: &TableDef) -> bool {
-        let folds = [FOLDS.name, FOLD_REGIONS.name, FOLD_EXCLUSIONS.name];
+        let folds = [
+            FOLDS.name,
+            FOLD_REGIONS.name,
+            FOLD_EXCLUSIONS.name,
+            NEAREST_DISTANCES.name,
+            FOLD_DISTANCES.name,
+        ];
         let scores = [
             UNIT_SUMMARIES.name,
             FOLD_SCORE_VALUES.name,
@@ -228,6 +235,17 @@ pub fn run_rows<'a>(
     }
     for (name, value) in &outcome.baseline.values {
         run_scores.push((name, "baseline", *value));
+    }
+    if let Some(matching) = &outcome.matching {
+        run_scores.push((MATCH_SCORE, "pooled", Some(matching.w)));
+        let per = &matching.w_per_repetition;
+        if per.len() > 1 {
+            let n = per.len() as f64;
+            let mean = per.iter().sum::<f64>() / n;
+            let sd = (per.iter().map(|w| (w - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+            run_scores.push((MATCH_SCORE, "repeat_mean", Some(mean)));
+            run_scores.push((MATCH_SCORE, "repeat_sd", Some(sd)));
+        }
     }
     let all: Vec<Box<dyn RowSource<'a> + 'a>> = vec![
         Box::new(HeldOut {
@@ -327,6 +345,37 @@ pub fn run_rows<'a>(
             starts: exclusions,
             total: offset,
         }),
+        Box::new(Nearest {
+            run_id,
+            data,
+            outcome,
+            repetitions: if outcome.matching.is_some() {
+                outcome
+                    .repetitions
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, r)| r.folds.cv_distances.is_some())
+                    .map(|(i, _)| i)
+                    .collect()
+            } else {
+                Vec::new()
+            },
+        }),
+        Box::new(Listed {
+            table: &FOLD_DISTANCES,
+            items: outcome.fold_distances.iter().collect(),
+            fill: move |d: &&DistanceSummary, out: &mut Vec<Value<'a>>| {
+                out.extend([
+                    Value::Uuid(run_id),
+                    Value::Str(d.kind),
+                    d.fold.map_or(Value::Null, |f| Value::Int(i64::from(f) + 1)),
+                    Value::Int(d.n as i64),
+                    d.sampled_from.map_or(Value::Null, |n| Value::Int(n as i64)),
+                ]);
+                out.extend(d.quantiles.iter().map(|&q| Value::Float(q)));
+                out.push(Value::Float(d.mean));
+            },
+        }),
         diagnostics_rows(
             run_id,
             outcome
@@ -412,6 +461,80 @@ where
     F: Fn(&T, &mut Vec<Value<'a>>) + 'a,
 {
     Box::new(Listed { table, items, fill })
+}
+
+/// The run score holding the match statistic W (the Wasserstein-1 distance
+/// between the CV distances and the prediction distances): statistic
+/// `pooled` over all repetitions' CV distances together, `repeat_mean` and
+/// `repeat_sd` (sample SD) of each repetition's W with several repetitions.
+pub const MATCH_SCORE: &str = "w_nnd";
+
+/// `nearest_distances`: each repetition's CV distances (unit-major), then
+/// the prediction distances; none without prediction locations.
+struct Nearest<'a> {
+    run_id: Uuid,
+    data: &'a Dataset,
+    outcome: &'a RunOutcome,
+    /// The repetitions with CV distances (all of them when the run has
+    /// prediction locations).
+    repetitions: Vec<usize>,
+}
+
+impl Nearest<'_> {
+    fn cv_rows(&self) -> usize {
+        self.repetitions.len() * self.data.len()
+    }
+}
+
+impl<'a> RowSource<'a> for Nearest<'a> {
+    fn table(&self) -> &'static TableDef {
+        &NEAREST_DISTANCES
+    }
+
+    fn len(&self) -> usize {
+        match &self.outcome.matching {
+            Some(matching) => self.cv_rows() + matching.prediction.len(),
+            None => 0,
+        }
+    }
+
+    fn fill(&self, row: usize, out: &mut Vec<Value<'a>>) {
+        out.clear();
+        let cv_rows = self.cv_rows();
+        if row < cv_rows {
+            let n = self.data.len();
+            let (repetition, unit) = (row / n, row % n);
+            let rep = self.outcome.repetitions.get(self.repetitions[repetition]);
+            let (fold, distance) = rep.map_or((0, None), |r| {
+                (
+                    r.folds.fold_of[unit],
+                    r.folds.cv_distances.as_ref().map(|d| d[unit]),
+                )
+            });
+            out.extend([
+                Value::Uuid(self.run_id),
+                Value::Int(self.repetitions[repetition] as i64 + 1),
+                Value::Str("cv"),
+                Value::Int(i64::from(fold) + 1),
+                Value::Id(&self.data.ids[unit]),
+                Value::float(distance),
+            ]);
+        } else {
+            let distance = self
+                .outcome
+                .matching
+                .as_ref()
+                .and_then(|m| m.prediction.get(row - cv_rows).copied());
+            out.extend([
+                Value::Uuid(self.run_id),
+                Value::Null,
+                Value::Str("prediction"),
+                Value::Null,
+                Value::Null,
+                Value::float(distance),
+            ]);
+        }
+    }
 }
 
 /// Rows given by a list of items and a function filling a row from one.

@@ -83,7 +83,7 @@ pub fn definitions(p: &str) -> Vec<(&'static str, &'static str, String)> {
         ),
         (
             "run_scores",
-            "geofold: one row per run: each score pooled over all held-out predictions, its mean and sample SD over folds (_fold_mean, _fold_sd) and over repetitions (_repeat_mean, _repeat_sd), and the training-mean baseline on the same folds (baseline_)",
+            "geofold: one row per run: each score pooled over all held-out predictions, its mean and sample SD over folds (_fold_mean, _fold_sd) and over repetitions (_repeat_mean, _repeat_sd), and the training-mean baseline on the same folds (baseline_); w_nnd is the distance-matching statistic of runs with prediction locations (see nearest_distances)",
             {
                 let mut columns = vec![
                     "max(v.value) FILTER (WHERE v.score = 'n' AND v.statistic = 'pooled') AS n_predictions"
@@ -104,6 +104,15 @@ pub fn definitions(p: &str) -> Vec<(&'static str, &'static str, String)> {
                             quote_literal(statistic)
                         ));
                     }
+                }
+                for (statistic, name) in [
+                    ("pooled", "w_nnd"),
+                    ("repeat_mean", "w_nnd_repeat_mean"),
+                    ("repeat_sd", "w_nnd_repeat_sd"),
+                ] {
+                    columns.push(format!(
+                        "max(v.value) FILTER (WHERE v.score = 'w_nnd' AND v.statistic = '{statistic}') AS {name}"
+                    ));
                 }
                 format!(
                     "SELECT v.run_id, {} FROM {p}run_score_values v GROUP BY v.run_id",

@@ -171,6 +171,8 @@ pub const RUN_TABLES: &[(&str, &str)] = &[
     ("fold_regions", "run_id"),
     ("fold_exclusions", "run_id"),
     ("coefficients", "run_id"),
+    ("fold_distances", "run_id"),
+    ("nearest_distances", "run_id"),
     // Each run's held-out residual Moran's I.
     ("diagnostics", "analysis_id"),
 ];

@@ -428,14 +428,18 @@ fn unfittable_folds_exit_65_naming_fold_and_features() {
         &[fold, "rank-deficient", "feature d is a linear combination"],
     );
     // 2 units per block: each fold trains on 2 units, and OLS with an intercept and
-    // 3 features needs at least 4 (common practice, no source).
+    // 3 features needs at least 4 (common practice, no source); found before any
+    // run is recorded.
     scratch.script("DELETE FROM {s}.points WHERE (id - 1) % 6 >= 2;");
     refused(
         &scratch,
         &workdir,
         &collinear,
         65,
-        &[fold, "2 training units", "(a, b, d)"],
+        &[
+            "cannot build folds: fold 1 of repetition 1 keeps 2 training units",
+            "fewer than the 4",
+        ],
     );
 }
 

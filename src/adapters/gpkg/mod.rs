@@ -47,6 +47,7 @@ pub mod blob;
 pub(crate) mod container;
 mod history;
 pub mod import;
+pub mod locations;
 mod read;
 mod readback;
 mod rows;
@@ -90,8 +91,8 @@ pub fn sqlite_error(path: &Path, action: &str, error: &rusqlite::Error) -> Error
     let (kind, what) = match error.sqlite_error_code() {
         Some(ErrorCode::DatabaseBusy | ErrorCode::DatabaseLocked) => (
             FileProblem::Locked,
-            "the file is locked by another program (geofold waited --lock-timeout); nothing was written; \
-             try again when it is free"
+            "the file is locked by another program (geofold waited --lock-timeout for a results file, \
+             5 s for a source); nothing was written; try again when it is free"
                 .to_string(),
         ),
         Some(ErrorCode::NotADatabase) => (

@@ -236,6 +236,19 @@ impl GpkgSource {
                 }
             }
         }
+        if let Some(group) = group_column.as_deref().and_then(find) {
+            let declared = base_type(&group.declared);
+            if !INTEGER_TYPES.contains(&declared.as_str()) && declared != "TEXT" {
+                problems.push((
+                    location(&group.name),
+                    format!(
+                        "group column has type {:?}; it must be INTEGER or TEXT (a code such as a district \
+                         number or name), so pick another --group-column or add a coded column",
+                        group.declared
+                    ),
+                ));
+            }
+        }
         if !problems.is_empty() {
             return Err(Error::Input { problems });
         }
@@ -444,6 +457,15 @@ impl Source for GpkgSource {
                 .map_err(|_| Error::Internal("the GeoPackage reader thread panicked".into()))?;
             consumed.and(produced)
         })
+    }
+
+    fn read_locations(
+        &mut self,
+        table: &str,
+        _geom: Option<&str>,
+        _distance_srid: Option<i32>,
+    ) -> Result<crate::adapters::Locations, Error> {
+        super::locations::read(&self.path, &self.info, table)
     }
 }
 
@@ -769,7 +791,11 @@ fn crs_kind(srs: &Srs) -> CrsKind {
 }
 
 /// The layer to read: the one named, or the file's only feature layer.
-fn choose_layer(conn: &Connection, path: &Path, layer: Option<&str>) -> Result<String, Error> {
+pub(crate) fn choose_layer(
+    conn: &Connection,
+    path: &Path,
+    layer: Option<&str>,
+) -> Result<String, Error> {
     let error = |e: rusqlite::Error| sqlite_error(path, "reading gpkg_contents", &e);
     let mut statement = conn
         .prepare("SELECT table_name, data_type FROM gpkg_contents ORDER BY table_name")

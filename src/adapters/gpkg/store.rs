@@ -640,8 +640,15 @@ fn write_runs(
             if rows.is_empty() {
                 continue;
             }
+            let clock = std::time::Instant::now();
             let range = insert_rows(&tx, path, rows.as_ref())?;
             let table = rows.table().name;
+            tracing::debug!(
+                table,
+                rows = rows.len(),
+                elapsed_ms = clock.elapsed().as_millis() as u64,
+                "inserted"
+            );
             if (table == "held_out" && run.outcome.repetitions.len() == 1)
                 || table == "unit_summaries"
             {

@@ -6,7 +6,7 @@
 //!   [`Session::connect`] tries them with libpq's `sslmode` rules and retries
 //!   a server that is not up yet.
 //! - [`copy`]: the binary COPY format.
-//! - [`read`]: inspecting and streaming the source table.
+//! - [`read`]: inspecting and streaming the source table; [`locations`]: prediction locations.
 //! - [`tls`]: TLS with libpq's six `sslmode` values, roots, revocation lists and client certificates.
 //! - [`migrate`]: creating and upgrading the results schema.
 //! - [`store`]: the results schema as a result store; [`layers`]: each job's map views;
@@ -16,6 +16,7 @@ pub mod connect;
 pub mod copy;
 pub mod history;
 pub mod layers;
+pub mod locations;
 pub mod migrate;
 pub mod read;
 pub mod readback;

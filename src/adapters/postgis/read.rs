@@ -340,7 +340,7 @@ impl PostgisSource {
 
 /// The error for a table that is not there: the schema missing, or the
 /// table, with the closest table names of the schema.
-fn missing_table(
+pub(crate) fn missing_table(
     session: &Session,
     schema: &str,
     name: &str,
@@ -510,6 +510,15 @@ impl Source for PostgisSource {
             Ok(())
         })
     }
+
+    fn read_locations(
+        &mut self,
+        table: &str,
+        geom: Option<&str>,
+        distance_srid: Option<i32>,
+    ) -> Result<crate::adapters::Locations, Error> {
+        super::locations::read(&self.session, &self.info, table, geom, distance_srid)
+    }
 }
 
 fn primary_key(session: &Session, oid: u32) -> Result<Option<String>, Error> {
@@ -544,7 +553,7 @@ fn declared_type(formatted: &str) -> String {
 }
 
 /// The SRID of a `geography(Type,SRID)` type modifier.
-fn declared_srid(formatted: &str) -> Option<i32> {
+pub(crate) fn declared_srid(formatted: &str) -> Option<i32> {
     let inside = formatted.split_once('(')?.1.trim_end_matches(')');
     inside.split(',').nth(1)?.trim().parse().ok()
 }
@@ -552,7 +561,7 @@ fn declared_srid(formatted: &str) -> Option<i32> {
 /// The SRID of the column: its type modifier if it has one; else the SRIDs
 /// its rows actually hold, which must be one, unless `--distance-srid`
 /// transforms every row from its own SRID (rows with SRID 0 cannot be).
-fn column_srid(
+pub(crate) fn column_srid(
     session: &Session,
     schema: &str,
     table: &str,

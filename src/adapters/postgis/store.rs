@@ -284,7 +284,14 @@ impl ResultStore for PostgisStore {
                     if rows.is_empty() {
                         continue;
                     }
+                    let clock = std::time::Instant::now();
                     let written = copy_rows(&tx, &schema, rows.as_ref(), info.srid).await?;
+                    tracing::debug!(
+                        table = rows.table().name,
+                        rows = written,
+                        elapsed_ms = clock.elapsed().as_millis() as u64,
+                        "loaded"
+                    );
                     add_count(&mut counts, rows.table().name, written);
                 }
                 mark_succeeded(&tx, &schema, run, data).await?;

@@ -23,12 +23,15 @@
 //!   the figures and caveats they rest on.
 //! - [`held_out`]: Moran's I of a run's held-out residuals, stored with
 //!   every run.
+//! - [`fold_distances`]: how far test units are from their training
+//!   units, per fold, stored with every run.
 //! - [`draws`]: the seeded index draws behind permutations and pair samples.
 
 pub mod advice;
 pub mod contiguity;
 pub mod correlogram;
 pub mod draws;
+pub mod fold_distances;
 pub mod held_out;
 pub mod moran;
 pub mod pairs;

@@ -14,14 +14,30 @@
 //! [`exclude_within`] removes from each fold's training set the units within
 //! the radius of any of its test units (Le Rest et al. 2014; Roberts et al. 2017).
 //!
-//! Schemes, one file each, registered in [`SCHEMES`]:
-//! - [`grid`]: square spatial blocks dealt to folds, balanced by unit count.
+//! Schemes, one file (or directory) each, registered in [`SCHEMES`]:
+//! - [`grid`]: square or hexagonal spatial blocks, dealt to folds at random
+//!   (balanced by unit count) or in a fixed pattern.
 //! - [`random`]: plain k-fold over units, the non-spatial comparison.
+//! - [`kmeans`]: k-means clusters of the units' points (Brenning 2012).
+//! - [`group`]: the groups of a column (e.g. a district code), kept whole.
+//! - [`loo`]: leave-one-out, spatial with an exclusion radius (Le Rest et al. 2014).
+//! - [`nndm`]: nearest-neighbour distance matching leave-one-out (Milà et al. 2022).
+//! - [`knndm`]: its k-fold form (Linnenbrink et al. 2024).
+//!
+//! Shared pieces: [`deal`] (clusters or groups dealt to folds, balancing
+//! units) and [`regions`] (hulls, unions and discs drawn for the folds).
 
+pub mod deal;
 pub mod grid;
+pub mod group;
+pub mod kmeans;
+pub mod knndm;
+pub mod loo;
+pub mod nndm;
 pub mod random;
+pub mod regions;
 
-use geo_types::MultiPolygon;
+use geo_types::{Geometry, MultiPolygon};
 use rand_chacha::ChaCha8Rng;
 use rand_core::{Rng, SeedableRng};
 use serde::de::DeserializeOwned;
@@ -42,6 +58,24 @@ pub struct SchemeInput<'a> {
     /// Where the model will be used (prediction locations), in the distance
     /// CRS, when the run names them.
     pub prediction_points: Option<&'a [[f64; 2]]>,
+    /// Each unit's geometry in the distance CRS, in id order, kept only when
+    /// the scheme asks for it ([`Requirements::geometries`]).
+    pub geometries: Option<&'a [Geometry<f64>]>,
+    /// The run's exclusion radius (CRS units), which [`exclude_within`]
+    /// applies after `assign`; schemes read it only to draw their regions.
+    pub exclusion_radius: Option<f64>,
+}
+
+/// What a scheme needs beyond the units' points, checked before any data
+/// are read (a missing group column or prediction table is a usage error).
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Requirements {
+    /// A group column (`--group-column`).
+    pub groups: bool,
+    /// The units' geometries (kept in memory only when this is set).
+    pub geometries: bool,
+    /// Prediction locations (`--prediction-table` / `--prediction-layer`).
+    pub prediction_points: bool,
 }
 
 /// The folds of one repetition.
@@ -61,6 +95,11 @@ pub struct FoldSet {
     /// Plain-words warnings about the split (e.g. blocks so small the split is
     /// close to random), each stating its rule.
     pub warnings: Vec<String>,
+    /// Per unit (id order), the distance from the unit to the nearest unit of
+    /// its fold's training set: the test-to-training nearest-neighbour
+    /// distances during cross-validation. Filled (after any exclusion buffer)
+    /// when the run has prediction locations to compare them with.
+    pub cv_distances: Option<Vec<f64>>,
 }
 
 impl FoldSet {
@@ -73,6 +112,7 @@ impl FoldSet {
             regions: Vec::new(),
             facts: serde_json::Map::new(),
             warnings: Vec::new(),
+            cv_distances: None,
         }
     }
 
@@ -142,6 +182,10 @@ pub trait FoldScheme: Send + Sync {
     /// # Errors
     /// [`Error::Folds`] when the units cannot be split as asked.
     fn assign(&self, input: &SchemeInput<'_>, rng: &mut FoldRng) -> Result<FoldSet, Error>;
+    /// What the scheme needs beyond the units' points (nothing by default).
+    fn requirements(&self) -> Requirements {
+        Requirements::default()
+    }
 }
 
 /// A scheme in the registry.
@@ -157,7 +201,15 @@ pub struct SchemeEntry {
 }
 
 /// Every scheme geofold offers. Adding a scheme is its file and one line here.
-pub const SCHEMES: &[SchemeEntry] = &[grid::ENTRY, random::ENTRY];
+pub const SCHEMES: &[SchemeEntry] = &[
+    grid::ENTRY,
+    random::ENTRY,
+    kmeans::ENTRY,
+    group::ENTRY,
+    loo::ENTRY,
+    nndm::ENTRY,
+    knndm::ENTRY,
+];
 
 /// Builds the scheme `name` from the options given for it.
 ///
@@ -272,6 +324,19 @@ impl FoldRng {
     }
 }
 
+/// The warning for unequal folds: when the largest fold holds more than 1.5
+/// times the units of the smallest (common practice, no source), a sentence
+/// saying so, followed by `advice`.
+pub fn unequal_folds(sizes: &[usize], advice: &str) -> Option<String> {
+    let smallest = sizes.iter().copied().min().unwrap_or(0);
+    let largest = sizes.iter().copied().max().unwrap_or(0);
+    (smallest > 0 && largest as f64 > 1.5 * smallest as f64).then(|| {
+        format!(
+            "folds are unequal: the largest holds {largest} units, the smallest {smallest} (warned above 1.5 times){advice}"
+        )
+    })
+}
+
 /// Median, smallest and largest of counts (e.g. units per block), for reports.
 pub fn count_summary(counts: &[usize]) -> serde_json::Value {
     let mut sorted = counts.to_vec();
@@ -349,6 +414,8 @@ mod tests {
             index: &index,
             groups: None,
             prediction_points: None,
+            geometries: None,
+            exclusion_radius: None,
         };
         let mut set = FoldSet::plain(3, vec![0, 0, 1, 1, 2, 2]);
         exclude_within(&mut set, &input, 1.0);

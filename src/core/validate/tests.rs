@@ -59,6 +59,8 @@ fn a_linear_field_is_predicted_exactly_except_for_y() {
         block_size: 5.0,
         grid_origin: [0.0, 0.0],
         folds: 4,
+        block_shape: Default::default(),
+        deal: Default::default(),
     })
     .unwrap();
     let outcome = run(&data, &grid, 1, 3).unwrap();

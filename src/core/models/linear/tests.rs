@@ -26,6 +26,7 @@ fn dataset(features: &[Vec<f64>], target: &[f64], points: &[[f64; 2]]) -> Datase
         groups: None,
         exposure: None,
         categorical: Vec::new(),
+        geometries: None,
     }
 }
 
