@@ -14,6 +14,11 @@
 //!   runs, one breaching, reports the semivariogram with its fitted model and
 //!   advice, the correlogram, the held-out Moran's I as stored, and the
 //!   history with the breach marked, on both stores.
+//! - Runs of every scheme (hexagonal grid, k-means, groups, leave-one-out,
+//!   NNDM, kNNDM) report with their four maps and map on both stores; a run
+//!   with prediction locations shows the nearest-distance distributions, their
+//!   medians as PostgreSQL's `percentile_cont` gives them.
+//! - A store without a newer table is read as it is.
 //! - Bad input: an unknown run or job (66, named), a fold the run does not
 //!   have (64), an unwritable file (73, nothing left).
 
@@ -399,11 +404,10 @@ fn a_store_without_a_newer_table_is_read_as_it_is() {
     assert!(!stores.pg.has_result_relation("coefficients"));
 }
 
-#[test]
-fn nearest_distances_of_a_run_with_prediction_locations_are_reported_on_both_stores() {
-    let stores = units_stores("report_distances");
-    // 10 × 10 prediction points 70 m apart from (500010, 5000010): inside the
-    // units' area and up to about 100 m beyond it.
+/// `{s}.targets` (and layer `targets` of source.gpkg): 10 × 10 prediction
+/// points 70 m apart from (500010, 5000010), inside the units' area and up
+/// to about 100 m beyond it.
+fn add_targets(stores: &Stores) {
     stores.pg.script(
         "CREATE TABLE {s}.targets (id integer PRIMARY KEY, geom geometry(Point, 32631));
          INSERT INTO {s}.targets
@@ -423,11 +427,98 @@ fn nearest_distances_of_a_run_with_prediction_locations_are_reported_on_both_sto
             "targets",
         ],
     );
-    for (store, extra) in [
-        (Store::Postgis, ["--prediction-table", "{s}.targets"]),
-        (Store::Gpkg, ["--prediction-layer", "targets"]),
-    ] {
-        let outcome = stores.run_one(store, &[UNITS_GRID, &extra].concat());
+}
+
+/// The prediction-location options of `store` for the targets of [`add_targets`].
+fn targets(store: Store) -> [&'static str; 2] {
+    match store {
+        Store::Postgis => ["--prediction-table", "{s}.targets"],
+        Store::Gpkg => ["--prediction-layer", "targets"],
+    }
+}
+
+#[test]
+fn runs_of_every_scheme_report_and_map_on_both_stores() {
+    let stores = units_stores("report_schemes");
+    add_targets(&stores);
+    let schemes: [&[&str]; 6] = [
+        &[
+            "--scheme",
+            "grid",
+            "--block-shape",
+            "hex",
+            "--block-size",
+            "200",
+            "--folds",
+            "3",
+        ],
+        &["--scheme", "kmeans", "--folds", "3"],
+        &[
+            "--scheme",
+            "group",
+            "--group-column",
+            "label",
+            "--folds",
+            "3",
+        ],
+        &["--scheme", "loo"],
+        &["--scheme", "nndm"],
+        &["--scheme", "knndm", "--folds", "3"],
+    ];
+    for store in BOTH {
+        for scheme in schemes {
+            let matching = scheme[1].ends_with("nndm");
+            let mut args = [UNITS_COLUMNS, scheme].concat();
+            if matching {
+                args.extend(targets(store));
+            }
+            let outcome = stores.run_one(store, &args);
+            assert_eq!(outcome.code(), 0, "{scheme:?}: {}", outcome.stderr());
+            let run = outcome.run_id(0);
+            let doc = ok_json(&geofold(
+                &stores.workdir,
+                "report",
+                store_args(&stores, store, "results.gpkg"),
+                &["--run", &run, "--to", "scheme.html", "--json"],
+            ));
+            assert_eq!(doc["units_drawn"], 36, "{scheme:?}: {doc}");
+            assert_eq!(
+                doc["maps"].as_array().unwrap().len(),
+                4,
+                "{scheme:?}: {doc}"
+            );
+            if matching {
+                assert_sections(&doc, &["distances"]);
+            }
+            let page = std::fs::read_to_string(stores.workdir.path("scheme.html")).unwrap();
+            assert_contains(&page, &[&format!("<dd>{} (", scheme[1])]);
+            ok_json(&geofold(
+                &stores.workdir,
+                "map",
+                store_args(&stores, store, "results.gpkg"),
+                &[
+                    "--run",
+                    &run,
+                    "--layer",
+                    "folds",
+                    "--to",
+                    "scheme.svg",
+                    "--json",
+                ],
+            ));
+            let svg = std::fs::read_to_string(stores.workdir.path("scheme.svg")).unwrap();
+            roxmltree::Document::parse(&svg)
+                .unwrap_or_else(|e| panic!("{scheme:?}: the fold map is not XML: {e}"));
+        }
+    }
+}
+
+#[test]
+fn nearest_distances_of_a_run_with_prediction_locations_are_reported_on_both_stores() {
+    let stores = units_stores("report_distances");
+    add_targets(&stores);
+    for store in BOTH {
+        let outcome = stores.run_one(store, &[UNITS_GRID, &targets(store)].concat());
         assert_eq!(outcome.code(), 0, "{}", outcome.stderr());
         let run = outcome.run_id(0);
         let file = format!("distances-{store:?}.html");
