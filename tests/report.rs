@@ -205,9 +205,10 @@ fn a_postgis_run_and_its_geopackage_export_report_byte_for_byte_alike() {
 fn the_demo_report_opens_in_chromium_and_shows_the_fold_colours() {
     let workdir = Workdir::new();
     assert_eq!(code(&workdir.run(&["demo", "--out", "demo.gpkg"])), 0);
+    // --gpkg is --results-gpkg for the reading commands.
     let doc = ok_json(&workdir.run(&[
         "report",
-        "--results-gpkg",
+        "--gpkg",
         "demo.gpkg",
         "--job",
         "demo_nitrate",
