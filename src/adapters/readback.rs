@@ -155,6 +155,27 @@ pub trait ReadBack {
     fn crs(&mut self, srid: i32) -> Result<CrsFacts, Error>;
 }
 
+/// The SELECT list of `table` in a store whose table has the columns
+/// `present`: `read(column)` for each column it has, `missing(type)` (a typed
+/// NULL) for each it lacks (a store of an earlier results version); None when
+/// it lacks the key column itself (no row can match).
+pub fn select_list(
+    table: &TableDef,
+    key: &str,
+    present: &[String],
+    read: impl Fn(&crate::results::Column) -> String,
+    missing: impl Fn(crate::results::ColumnType) -> String,
+) -> Option<Vec<String>> {
+    let has = |name: &str| present.iter().any(|p| p == name);
+    has(key).then(|| {
+        table
+            .columns
+            .iter()
+            .map(|c| if has(c.name) { read(c) } else { missing(c.ty) })
+            .collect()
+    })
+}
+
 /// The position of column `key` in `table`.
 ///
 /// # Errors

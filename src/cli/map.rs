@@ -8,10 +8,10 @@ use std::path::PathBuf;
 use clap::{Args, ValueEnum};
 use serde::Serialize;
 
-use super::output::{render_error, split_fold, write_atomically, RunArgs};
+use super::output::{read_run, render_error, split_fold, write_atomically, RunArgs};
 use super::store::StoreArgs;
 use crate::error::Error;
-use crate::readback::load::{load, Reading};
+use crate::readback::load::Reading;
 use crate::readback::map::take_map_input;
 use crate::render::{render_map_svg, svg_to_png, MapKind, MapOptions};
 
@@ -139,11 +139,9 @@ pub fn run(args: &MapArgs) -> Result<MapWritten, Error> {
     if args.fold.is_some() && args.layer != Layer::Split {
         return Err(Error::Usage("--fold goes with --layer split".into()));
     }
-    let choice = args.run.choice()?;
-    let mut store = args.store.open(args.run.job.as_deref())?;
-    let mut stored = load(
-        store.as_mut(),
-        &choice,
+    let (store, mut stored) = read_run(
+        &args.store,
+        &args.run,
         Reading {
             units: true,
             job: false,

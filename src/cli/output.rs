@@ -9,8 +9,10 @@ use std::path::Path;
 
 use clap::Args;
 
+use super::store::StoreArgs;
+use crate::adapters::history::Store;
 use crate::error::{Error, FileProblem, Location};
-use crate::readback::load::RunChoice;
+use crate::readback::load::{load, Reading, RunChoice};
 use crate::readback::StoredRun;
 use crate::render::RenderError;
 
@@ -41,6 +43,21 @@ impl RunArgs {
             (None, None) => Err(Error::Usage("name --run RUN_ID or --job NAME".into())),
         }
     }
+}
+
+/// Opens the store named and reads the run asked for with `reading`.
+///
+/// # Errors
+/// As [`RunArgs::choice`], [`StoreArgs::open`] and [`load`].
+pub fn read_run(
+    store: &StoreArgs,
+    run: &RunArgs,
+    reading: Reading,
+) -> Result<(Box<dyn Store>, StoredRun), Error> {
+    let choice = run.choice()?;
+    let mut opened = store.open(run.job.as_deref())?;
+    let stored = load(opened.as_mut(), &choice, reading)?;
+    Ok((opened, stored))
 }
 
 /// The fold whose split is drawn: `fold`, or the run's lowest.

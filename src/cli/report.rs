@@ -9,10 +9,10 @@ use std::path::PathBuf;
 use clap::Args;
 use serde::Serialize;
 
-use super::output::{render_error, split_fold, write_atomically, RunArgs};
+use super::output::{read_run, render_error, split_fold, write_atomically, RunArgs};
 use super::store::StoreArgs;
 use crate::error::Error;
-use crate::readback::load::{load, Reading};
+use crate::readback::load::Reading;
 use crate::readback::map::take_map_input;
 use crate::readback::report::report_input;
 use crate::render::report::{render_report_html, report_map_kinds, ReportOptions};
@@ -106,11 +106,9 @@ impl ReportWritten {
 /// that did not succeed; 73 when the file cannot be written; database and
 /// file errors.
 pub fn run(args: &ReportArgs) -> Result<ReportWritten, Error> {
-    let choice = args.run.choice()?;
-    let mut store = args.store.open(args.run.job.as_deref())?;
-    let mut stored = load(
-        store.as_mut(),
-        &choice,
+    let (store, mut stored) = read_run(
+        &args.store,
+        &args.run,
         Reading {
             units: true,
             job: true,

@@ -16,7 +16,9 @@ use rusqlite::{Connection, OptionalExtension};
 use super::rows::job_descriptions;
 use super::store::GpkgStore;
 use super::{blob, quote, schema, sqlite_error};
-use crate::adapters::readback::{key_column, CrsFacts, GeometryOrigin, ReadBack, UnitSource};
+use crate::adapters::readback::{
+    key_column, select_list, CrsFacts, GeometryOrigin, ReadBack, UnitSource,
+};
 use crate::error::{Error, FileProblem};
 use crate::results::rows::Owned;
 use crate::results::{ColumnType, Keying, TableDef};
@@ -110,20 +112,15 @@ impl ReadBack for GpkgStore {
                 .collect::<Result<_, _>>()
                 .map_err(|e| sqlite_error(&path, "reading the results tables' columns", &e))?
         };
-        if !present.iter().any(|c| c == key) {
+        let Some(columns) = select_list(
+            table,
+            key,
+            &present,
+            |c| quote(c.name),
+            |_| "NULL".to_string(),
+        ) else {
             return Ok(());
-        }
-        let columns: Vec<String> = table
-            .columns
-            .iter()
-            .map(|c| {
-                if present.iter().any(|p| p == c.name) {
-                    quote(c.name)
-                } else {
-                    "NULL".to_string()
-                }
-            })
-            .collect();
+        };
         let order = match table.keying {
             Keying::Serial(key) => quote(key),
             Keying::Primary(key) => key.iter().map(|k| quote(k)).collect::<Vec<_>>().join(", "),

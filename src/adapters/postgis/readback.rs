@@ -8,7 +8,9 @@ use geozero::ToGeo;
 use super::reads::{owned, read_expression};
 use super::store::PostgisStore;
 use super::{database_error, quote_ident, split_qualified};
-use crate::adapters::readback::{key_column, CrsFacts, GeometryOrigin, ReadBack, UnitSource};
+use crate::adapters::readback::{
+    key_column, select_list, CrsFacts, GeometryOrigin, ReadBack, UnitSource,
+};
 use crate::error::Error;
 use crate::results::rows::Owned;
 use crate::results::{ColumnType, Keying, TableDef};
@@ -68,20 +70,15 @@ impl ReadBack for PostgisStore {
         let Some(present) = self.existing_columns(table.name)? else {
             return Ok(());
         };
-        if !present.iter().any(|c| c == key) {
+        let Some(columns) = select_list(
+            table,
+            key,
+            &present,
+            |c| read_expression(c.name, c.ty),
+            |ty| null_expression(ty).to_string(),
+        ) else {
             return Ok(());
-        }
-        let columns: Vec<String> = table
-            .columns
-            .iter()
-            .map(|c| {
-                if present.iter().any(|p| p == c.name) {
-                    read_expression(c.name, c.ty)
-                } else {
-                    null_expression(c.ty).to_string()
-                }
-            })
-            .collect();
+        };
         let order = match table.keying {
             Keying::Serial(key) => format!(" ORDER BY {}", quote_ident(key)),
             Keying::Primary(key) => format!(
