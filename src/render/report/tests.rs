@@ -81,7 +81,7 @@ fn minimal_report_leaves_out_what_is_absent() {
         );
     }
     assert!(html.contains("<section id=\"scores\""));
-    assert!(html.contains("2 (target is missing)"));
+    assert!(html.contains("2 rows (target is missing: 2)"));
     assert!(html.contains("block size 1,000 m"));
 }
 

@@ -105,9 +105,14 @@ pub fn settings(page: &mut String, run: &RunFacts) {
                 .units_skipped
                 .iter()
                 .filter(|s| s.count > 0)
-                .map(|s| format!("{} ({})", count(s.count), s.reason))
+                .map(|s| format!("{}: {}", s.reason, count(s.count)))
                 .collect();
-            format!("{}: {}", count(skipped), reasons.join("; "))
+            format!(
+                "{} {} ({})",
+                count(skipped),
+                if skipped == 1 { "row" } else { "rows" },
+                reasons.join("; ")
+            )
         },
     ));
     rows.push(("Data fingerprint".to_string(), run.fingerprint.clone()));
