@@ -94,8 +94,9 @@ fn main() {
         Command::Prune(args) => {
             geofold::cli::prune::run(args).map(|r| Printed::new(exit::OK, r.to_text(), &r))
         }
-        Command::Demo(args) => geofold::cli::demo::run(args)
-            .map(|(s, hint)| Printed::new(s.exit_code, format!("{}\n{hint}", s.to_text()), &s)),
+        Command::Demo(args) => {
+            geofold::cli::demo::run(args).map(|d| Printed::new(d.exit_code, d.to_text(), &d))
+        }
         Command::Export(args) => {
             geofold::cli::export::run(args).map(|r| Printed::new(exit::OK, r.to_text(), &r))
         }

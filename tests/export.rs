@@ -67,6 +67,15 @@ fn results_of_a_postgis_source_go_to_a_geopackage_through_export() {
         .parse()
         .unwrap()
     };
+    // Rows of the exported runs or of the job's inspections.
+    let owned = |table: &str| -> u64 {
+        psql(&format!(
+            "SELECT count(*) FROM geofold_demo.{table} WHERE analysis_id IN ({ids})
+                 OR analysis_id IN (SELECT inspection_id FROM geofold_demo.inspections WHERE job = 'demo_nitrate')"
+        ))
+        .parse()
+        .unwrap()
+    };
     let view_count = |view: &str| -> u64 {
         psql(&format!("SELECT count(*) FROM geofold_demo.{view}"))
             .parse()
@@ -115,19 +124,9 @@ fn results_of_a_postgis_source_go_to_a_geopackage_through_export() {
     ]
     .into_iter()
     .chain([
-        // The runs' held-out residual Moran's I; the demo records no inspection.
-        (
-            "diagnostics",
-            layer(
-                "None",
-                psql(&format!(
-                    "SELECT count(*) FROM geofold_demo.diagnostics WHERE analysis_id IN ({ids})"
-                ))
-                .parse()
-                .unwrap(),
-                None,
-            ),
-        ),
+        // The runs' held-out residual Moran's I, and the figures of the job's
+        // inspection (the demo inspects before it runs): they travel with it.
+        ("diagnostics", layer("None", owned("diagnostics"), None)),
         (
             "coefficients",
             layer("None", pg_count("coefficients"), None),
@@ -137,10 +136,22 @@ fn results_of_a_postgis_source_go_to_a_geopackage_through_export() {
             "fold_distances",
             layer("None", pg_count("fold_distances"), None),
         ),
-        ("inspections", layer("None", 0, None)),
-        ("semivariogram", layer("None", 0, None)),
-        ("variogram_fits", layer("None", 0, None)),
-        ("correlogram", layer("None", 0, None)),
+        (
+            "inspections",
+            layer(
+                "None",
+                psql("SELECT count(*) FROM geofold_demo.inspections WHERE job = 'demo_nitrate'")
+                    .parse()
+                    .unwrap(),
+                None,
+            ),
+        ),
+        ("semivariogram", layer("None", owned("semivariogram"), None)),
+        (
+            "variogram_fits",
+            layer("None", owned("variogram_fits"), None),
+        ),
+        ("correlogram", layer("None", owned("correlogram"), None)),
     ])
     .map(|(name, info)| (name.to_string(), info))
     .collect();

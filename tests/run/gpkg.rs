@@ -361,7 +361,7 @@ fn demo_args(extra: &[&str]) -> Vec<String> {
 #[test]
 fn a_second_run_appends_and_the_job_layers_show_the_latest() {
     let workdir = Workdir::new();
-    let demo = ok_json(&workdir.run(&["demo", "--json"]));
+    let demo = ok_json(&workdir.run(&["demo", "--json"]))["blocks"].clone();
     let file = workdir.path("geofold-demo.gpkg");
     let first = run_id(&demo, 0);
     let count = |sql: &str| gdal_sql(&file, sql);
