@@ -7,7 +7,8 @@
 //! - [`results`]: one definition of every results table.
 //! - [`inspect`]: spatial diagnostics of a layer, stored beside the runs.
 //! - [`adapters`]: PostGIS and GeoPackage readers and result stores.
-//! - [`report`]: the summary, as text and JSON; [`render`]: maps and the HTML report.
+//! - [`report`]: the summary, as text and JSON; [`render`]: maps and the HTML report;
+//!   [`readback`]: a stored run read back and turned into what `render` draws.
 //! - [`jobs`]: job files (TOML of named jobs); [`gates`]: drift gates and baselines.
 //! - [`progress`]: the pipeline's progress hook and its terminal bars.
 //! - [`cli`]: one module per subcommand.
@@ -23,6 +24,7 @@ pub mod inspect;
 pub mod jobs;
 pub mod pipeline;
 pub mod progress;
+pub mod readback;
 pub mod render;
 pub mod report;
 pub mod results;

@@ -40,6 +40,8 @@ fn main() {
         Command::Demo(args) => args.json,
         Command::Export(args) => args.json,
         Command::Inspect(args) => args.json,
+        Command::Report(args) => args.json,
+        Command::Map(args) => args.json,
         Command::Score(args) => args.json,
         Command::Completions(_) | Command::Man(_) => false,
     };
@@ -103,6 +105,12 @@ fn main() {
         }
         Command::Inspect(args) => {
             geofold::cli::inspect::run(args).map(|r| Printed::new(exit::OK, r.to_text(), &r))
+        }
+        Command::Report(args) => {
+            geofold::cli::report::run(args).map(|r| Printed::new(exit::OK, r.to_text(), &r))
+        }
+        Command::Map(args) => {
+            geofold::cli::map::run(args).map(|r| Printed::new(exit::OK, r.to_text(), &r))
         }
         Command::Completions(args) => {
             geofold::cli::completions::run(args).map(|()| Printed::nothing())

@@ -440,6 +440,11 @@ impl Unchanged {
 
 /// The key of `runs.parameters` that holds [`RunSpec::settings_hash`].
 pub const SETTINGS_HASH_KEY: &str = "settings-hash";
+/// The key of `runs.parameters` that holds the run's drift gates (as written,
+/// `rmse<=1.25`), so that a report can draw them over the job's history.
+pub const GATES_KEY: &str = "gates";
+/// The key of `runs.parameters` that holds `--baseline-runs`.
+pub const BASELINE_RUNS_KEY: &str = "baseline-runs";
 
 /// Runs a specification with no progress display; an unchanged input (only
 /// possible with `skip_unchanged`) is an internal error here.
@@ -844,6 +849,8 @@ fn parameters(
         "scheme": scheme.parameters(),
         "model": model.parameters(),
         "exclusion-radius": spec.exclusion_radius,
+        GATES_KEY: spec.gates,
+        BASELINE_RUNS_KEY: spec.baseline_runs,
     });
     if !data.categorical.is_empty() {
         parameters["unseen-levels"] = serde_json::json!(spec.unseen_levels);

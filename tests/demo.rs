@@ -117,6 +117,7 @@ fn demo_with_no_arguments_writes_a_geopackage_gdal_opens() {
             "fold_exclusions",
             layer("None", count("fold_exclusions"), None),
         ),
+        ("coefficients", layer("None", count("coefficients"), None)),
         ("jobs", layer("None", 0, None)),
     ]
     .into_iter()

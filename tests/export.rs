@@ -116,6 +116,10 @@ fn results_of_a_postgis_source_go_to_a_geopackage_through_export() {
             "fold_exclusions",
             layer("None", pg_count("fold_exclusions"), None),
         ),
+        (
+            "coefficients",
+            layer("None", pg_count("coefficients"), None),
+        ),
         ("jobs", layer("None", 0, None)),
     ]
     .into_iter()

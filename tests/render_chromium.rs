@@ -1,5 +1,6 @@
 //! The HTML report in a real browser: headless Chromium (Debian's `chromium`,
-//! or the binary named by `GEOFOLD_CHROMIUM`) opens the page from a file.
+//! or the binary named by `GEOFOLD_CHROMIUM`) opens the page from a file
+//! (helpers in `common/chromium.rs`).
 //!
 //! **No console errors.** Chromium started with `--enable-logging=stderr --v=0`
 //! writes every console message — script errors, refused loads, Content
@@ -14,81 +15,15 @@
 //! over the area the fixture's units cover (from the map's own frame), and the
 //! DOM Chromium built must hold the sections and the inline SVGs.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
-use std::time::{Duration, Instant};
+mod common;
 
+use std::path::{Path, PathBuf};
+
+use common::chromium::{console_lines, run_chromium, screenshot};
 use geofold::render::fixtures::{minimal_report, tiny_map};
 use geofold::render::map_frame;
 use geofold::render::palette::sequential;
 use geofold::render::report::{render_report_html, ReportOptions};
-
-fn chromium() -> PathBuf {
-    let path = std::env::var_os("GEOFOLD_CHROMIUM")
-        .map_or_else(|| PathBuf::from("/usr/bin/chromium"), PathBuf::from);
-    assert!(
-        path.exists(),
-        "{} not found: install Debian's chromium (scripts/test.sh does) or set GEOFOLD_CHROMIUM",
-        path.display()
-    );
-    path
-}
-
-/// Runs Chromium on `page` with `extra` arguments; returns (stdout, stderr).
-fn run_chromium(page: &Path, extra: &[String]) -> (String, String) {
-    let profile = tempfile::tempdir().unwrap();
-    let mut child = Command::new(chromium())
-        .args([
-            "--headless",
-            "--no-sandbox",
-            "--disable-gpu",
-            "--disable-quic",
-            "--no-first-run",
-            "--disable-background-networking",
-            "--disable-component-update",
-            "--disable-sync",
-            "--hide-scrollbars",
-            "--force-device-scale-factor=1",
-            "--enable-logging=stderr",
-            "--v=0",
-        ])
-        .arg(format!("--user-data-dir={}", profile.path().display()))
-        .args(extra)
-        .arg(format!("file://{}", page.display()))
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    // Read both pipes on threads so a full pipe cannot stall Chromium.
-    let mut stdout = child.stdout.take().unwrap();
-    let mut stderr = child.stderr.take().unwrap();
-    let out = std::thread::spawn(move || {
-        let mut s = String::new();
-        std::io::Read::read_to_string(&mut stdout, &mut s).unwrap();
-        s
-    });
-    let err = std::thread::spawn(move || {
-        let mut s = String::new();
-        std::io::Read::read_to_string(&mut stderr, &mut s).unwrap();
-        s
-    });
-    let started = Instant::now();
-    loop {
-        if child.try_wait().unwrap().is_some() {
-            break;
-        }
-        if started.elapsed() > Duration::from_secs(120) {
-            child.kill().unwrap();
-            panic!("chromium did not finish within 120 s");
-        }
-        std::thread::sleep(Duration::from_millis(100));
-    }
-    (out.join().unwrap(), err.join().unwrap())
-}
-
-fn console_lines(stderr: &str) -> Vec<&str> {
-    stderr.lines().filter(|l| l.contains("CONSOLE")).collect()
-}
 
 fn write_report(dir: &Path) -> PathBuf {
     let html = render_report_html(
@@ -153,27 +88,9 @@ fn screenshot_shows_the_units_in_their_class_colours() {
     let page = write_report(dir.path());
     let shot = dir.path().join("shot.png");
     let (width, height) = (1100u32, 5200u32);
-    run_chromium(
-        &page,
-        &[
-            format!("--screenshot={}", shot.display()),
-            format!("--window-size={width},{height}"),
-        ],
-    );
-    let bytes = std::fs::read(&shot).unwrap();
-    let decoder = png::Decoder::new(std::io::Cursor::new(bytes));
-    let mut reader = decoder.read_info().unwrap();
-    let mut pixels = vec![0; reader.output_buffer_size().unwrap()];
-    let info = reader.next_frame(&mut pixels).unwrap();
-    assert_eq!((info.width, info.height), (width, height));
-    let channels = info.color_type.samples();
-    let colour_at = |i: usize| {
-        (
-            pixels[i * channels],
-            pixels[i * channels + 1],
-            pixels[i * channels + 2],
-        )
-    };
+    let image = screenshot(&page, &shot, width, height);
+    assert_eq!((image.width, image.height), (width, height));
+    let colour_at = |i: usize| image.colour_at(i);
     let n = (width * height) as usize;
 
     // Not blank: a good share of non-white pixels and many colours.

@@ -1,11 +1,13 @@
 //! Reading a job's history back out of a results store, and removing old
 //! runs: what `history`, `compare`, `pin` and `prune` need beyond
 //! [`ResultStore`]. Both stores implement [`RunHistory`] (in their
-//! `history` modules); [`Store`] is the two traits together.
+//! `history` modules); [`Store`] is these two traits and
+//! [`ReadBack`] together.
 
 use serde::Serialize;
 use uuid::Uuid;
 
+use super::readback::ReadBack;
 use super::ResultStore;
 use crate::error::Error;
 use crate::results::{TableDef, RUNS, TABLES};
@@ -77,10 +79,10 @@ pub trait RunHistory {
     fn delete_runs(&mut self, run_ids: &[Uuid], commit: bool) -> Result<Deleted, Error>;
 }
 
-/// A results store with its history.
-pub trait Store: ResultStore + RunHistory {}
+/// A results store with its history and its read-back.
+pub trait Store: ResultStore + RunHistory + ReadBack {}
 
-impl<T: ResultStore + RunHistory> Store for T {}
+impl<T: ResultStore + RunHistory + ReadBack> Store for T {}
 
 /// The tables holding rows of runs (by `run_id`, or by `analysis_id` for a
 /// run's diagnostics), children first, `runs` last; delete by each table's

@@ -10,10 +10,12 @@
 //! - [`sql`]: SQL identifiers and literals, shared by both.
 //! - [`wkb`]: WKB for the region polygons geofold makes.
 //! - [`history`]: reading a job's history back and removing old runs.
+//! - [`readback`]: reading a stored run back for `report` and `map`.
 
 pub mod gpkg;
 pub mod history;
 pub mod postgis;
+pub mod readback;
 pub mod sql;
 pub mod wkb;
 

@@ -47,10 +47,32 @@ pub fn multipolygon(geometry: &MultiPolygon<f64>, srid: Option<i32>) -> Vec<u8> 
 /// The name of the last unit a WKT names (`UNIT["metre",1]` in WKT1,
 /// `LENGTHUNIT["metre",1]` in WKT2): for a projected CRS its length unit.
 pub fn wkt_length_unit(wkt: &str) -> Option<String> {
+    wkt_unit(wkt).map(|(name, _)| name)
+}
+
+/// The last unit a WKT names with its conversion factor (`UNIT["US survey
+/// foot",0.304800609601219]` → the name and 0.304800609601219: metres per
+/// unit for a length, radians per unit for an angle); the factor is None
+/// when it is missing or not a positive number.
+pub fn wkt_unit(wkt: &str) -> Option<(String, Option<f64>)> {
     let at = wkt.rfind("UNIT[\"")?;
     let rest = &wkt[at + 6..];
-    let name = &rest[..rest.find('"')?];
-    (!name.is_empty()).then(|| name.to_string())
+    let end = rest.find('"')?;
+    let name = &rest[..end];
+    if name.is_empty() {
+        return None;
+    }
+    let after = rest[end + 1..].trim_start();
+    let factor = after.strip_prefix(',').and_then(|tail| {
+        let tail = tail.trim_start();
+        let stop = tail.find([',', ']']).unwrap_or(tail.len());
+        tail[..stop]
+            .trim()
+            .parse::<f64>()
+            .ok()
+            .filter(|f| f.is_finite() && *f > 0.0)
+    });
+    Some((name.to_string(), factor))
 }
 
 #[cfg(test)]

@@ -16,6 +16,7 @@ use uuid::Uuid;
 use crate::adapters::gpkg::import::{import, UnitLayer};
 use crate::adapters::postgis::store::PostgisStore;
 use crate::adapters::postgis::Session;
+use crate::adapters::readback::ReadBack;
 use crate::adapters::{ResultStore, StoredRun};
 use crate::core::units::IdKind;
 use crate::error::{Error, Location};
@@ -185,19 +186,20 @@ pub fn run(args: &ExportArgs) -> Result<ExportReport, Error> {
             .map(|run| run.run_id),
     );
     store.begin_reading()?;
-    let exported = copy(&store, args, &primary, &run_ids);
+    let exported = copy(&mut store, args, &primary, &run_ids);
     store.end_reading();
     exported
 }
 
 fn copy(
-    store: &PostgisStore,
+    store: &mut PostgisStore,
     args: &ExportArgs,
     primary: &StoredRun,
     run_ids: &[Uuid],
 ) -> Result<ExportReport, Error> {
+    let ids: Vec<String> = run_ids.iter().map(Uuid::to_string).collect();
     let mut run_rows = Vec::new();
-    store.read_rows(&RUNS, &[primary.run_id], |row| {
+    store.read_rows(&RUNS, "run_id", &ids[..1], &mut |row| {
         run_rows.push(row);
         Ok(())
     })?;
@@ -213,10 +215,15 @@ fn copy(
     };
     let (source_srid, distance_srid) = (int("source_srid"), int("distance_srid"));
     let mut job_row = None;
-    store.read_rows_by_job(&JOBS, &primary.job, |row| {
-        job_row = Some(row);
-        Ok(())
-    })?;
+    store.read_rows(
+        &JOBS,
+        "job",
+        std::slice::from_ref(&primary.job),
+        &mut |row| {
+            job_row = Some(row);
+            Ok(())
+        },
+    )?;
     let (id_kind, geometry_type) = match &job_row {
         Some(row) => (
             if text(column(&JOBS, row, "id_type")) == "text" {
@@ -230,24 +237,33 @@ fn copy(
     };
     let source_srs = store.srs(source_srid)?;
     let distance_srs = store.srs(distance_srid)?;
-    let ids: Vec<String> = run_ids.iter().map(Uuid::to_string).collect();
     let layer = UnitLayer {
         id_kind,
         geometry_type,
         srs_id: source_srs.srs_id,
     };
     // The job's inspections travel with it (their figures advise its runs).
-    let mut owners = run_ids.to_vec();
-    store.read_rows_by_job(&INSPECTIONS, &primary.job, |row| {
-        if let Owned::Text(id) = column(&INSPECTIONS, &row, "inspection_id") {
-            owners.extend(Uuid::parse_str(id).ok());
-        }
-        Ok(())
-    })?;
+    let mut owners = ids.clone();
+    store.read_rows(
+        &INSPECTIONS,
+        "job",
+        std::slice::from_ref(&primary.job),
+        &mut |row| {
+            if let Owned::Text(id) = column(&INSPECTIONS, &row, "inspection_id") {
+                owners.push(id.clone());
+            }
+            Ok(())
+        },
+    )?;
     let rows_written = import(&args.to, &[source_srs, distance_srs], &ids, |sink| {
-        for table in TABLES.iter().filter(|t| t.name != "jobs") {
+        // Every table but jobs, by what its rows belong to: runs (run_id),
+        // runs and inspections (analysis_id), inspections (inspection_id).
+        for table in TABLES {
+            let Some(key) = table.owner_column() else {
+                continue;
+            };
             sink.table(table)?;
-            store.read_rows(table, &owners, |row| sink.row(row))?;
+            store.read_rows(table, key, &owners, &mut |row| sink.row(row))?;
         }
         let mut units = Vec::new();
         store.unit_layer_rows(

@@ -9,8 +9,11 @@ pub mod export;
 pub mod history;
 pub mod inspect;
 pub mod man;
+pub mod map;
+pub mod output;
 pub mod pin;
 pub mod prune;
+pub mod report;
 pub mod run;
 pub mod run_jobs;
 pub mod score;
@@ -114,6 +117,12 @@ pub enum Command {
     Demo(demo::DemoArgs),
     /// Copy one run's results (or a job's latest) from PostGIS into a GeoPackage.
     Export(export::ExportArgs),
+    /// Write one self-contained HTML report of a run (or a job's latest): settings, scores,
+    /// maps, diagnostics and the job's history.
+    Report(report::ReportArgs),
+    /// Draw one map of a run (or a job's latest) as SVG or PNG: folds, one fold's split, error
+    /// or residual.
+    Map(map::MapArgs),
     /// Measure spatial autocorrelation of the target and of a model's residuals, the
     /// semivariogram, and advise a block size and exclusion radius.
     Inspect(Box<inspect::InspectArgs>),

@@ -20,8 +20,14 @@ pub struct StoreArgs {
     /// PostGIS results schema.
     #[arg(long, default_value = "geofold", value_name = "SCHEMA")]
     pub results_schema: String,
-    /// A GeoPackage holding results, instead of PostGIS.
-    #[arg(long, value_name = "FILE", conflicts_with = "db")]
+    /// A GeoPackage holding results, instead of PostGIS (--gpkg is the same: for reading, the
+    /// file is the results store).
+    #[arg(
+        long,
+        value_name = "FILE",
+        conflicts_with = "db",
+        visible_alias = "gpkg"
+    )]
     pub results_gpkg: Option<PathBuf>,
     /// Use the results store of this job file's jobs (of --job when given; the jobs must share
     /// one store otherwise).

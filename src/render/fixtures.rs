@@ -160,8 +160,9 @@ pub fn grid_map(columns: u32, rows: u32, cell: f64, block: u32, folds: u32) -> M
 
 use super::report::input::{
     Better, Comparison, Correlogram, CorrelogramBin, FittedVariogram, FoldCoefficient, FoldScores,
-    Gate, HistoryPoint, NearestDistances, ReportInput, RunFacts, Score, ScoreDefinition,
-    ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin, VariogramModel,
+    Gate, HistoryPoint, NearestDistances, ReportInput, ResidualMoran, RunFacts, Score,
+    ScoreDefinition, ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin,
+    VariogramModel,
 };
 
 fn score_list(rmse: f64, mae: f64, bias: f64) -> Vec<Score> {
@@ -255,6 +256,7 @@ pub fn minimal_report() -> ReportInput {
         },
         comparison: None,
         coefficients: Vec::new(),
+        held_out_moran: None,
         semivariogram: None,
         correlogram: None,
         nearest_distances: None,
@@ -288,6 +290,15 @@ pub fn full_report() -> ReportInput {
             });
         }
     }
+    report.held_out_moran = Some(ResidualMoran {
+        weights: "the 8 nearest units as neighbours (knn:8, weights row-standardised)".to_string(),
+        units: 4,
+        sampled_from: None,
+        value: 0.21,
+        expected: -1.0 / 3.0,
+        z: 2.4,
+        p_value: 0.016,
+    });
     let fitted = FittedVariogram {
         model: VariogramModel::Spherical,
         nugget: 0.5,

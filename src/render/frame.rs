@@ -190,7 +190,7 @@ impl MapFrame {
 }
 
 /// A number without trailing zeros: 2, 0.5, 0.05, 20000.
-fn trim_number(value: f64) -> String {
+pub(crate) fn trim_number(value: f64) -> String {
     let text = format!("{value:.6}");
     let text = text.trim_end_matches('0').trim_end_matches('.');
     text.to_string()

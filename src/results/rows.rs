@@ -33,7 +33,8 @@ pub struct RunRecord {
     pub model: String,
     /// `regression`, …
     pub family: &'static str,
-    /// Scheme and model options: `{"scheme": {…}, "model": {…}, "exclusion-radius": …}`.
+    /// Scheme and model options and the run's gates: `{"scheme": {…}, "model": {…}, "exclusion-radius": …,
+    /// "settings-hash": …, "gates": ["rmse<=1.25"], "baseline-runs": 5}`.
     pub parameters: serde_json::Value,
     /// Seed.
     pub seed: u64,

@@ -8,8 +8,10 @@
 //! - [`fixtures`]: the invented test tables (lattices, bad rows, GeoJSON).
 //! - [`reference`]: stored results checked against SQL, PostGIS and numpy.
 //! - [`stores`]: the both-store harness.
+//! - [`chromium`]: headless Chromium and PNG decoding for pixel checks.
 #![allow(dead_code)]
 
+pub mod chromium;
 pub mod fixtures;
 pub mod gdal;
 pub mod pg;

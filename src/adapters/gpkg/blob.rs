@@ -257,6 +257,23 @@ pub fn envelope(blob: &[u8]) -> Result<Option<[f64; 4]>, BlobError> {
     Ok(bounds.envelope())
 }
 
+/// The geometry of a blob, its body checked by [`walk_wkb`] before geozero
+/// decodes it; `None` for an empty geometry.
+///
+/// # Errors
+/// Any [`BlobError`], or the decoder's complaint, as text.
+pub fn to_geometry(blob: &[u8]) -> Result<Option<geo_types::Geometry<f64>>, String> {
+    use geozero::ToGeo;
+    let header = check(blob).map_err(|e| e.to_string())?;
+    if header.empty {
+        return Ok(None);
+    }
+    geozero::wkb::Wkb(&blob[header.wkb_offset..])
+        .to_geo()
+        .map(Some)
+        .map_err(|e| format!("geometry cannot be decoded: {e}"))
+}
+
 /// Wraps a WKB body in a little-endian StandardGeoPackageBinary header with
 /// an XY envelope (envelope code 1); an empty geometry (`envelope` None) gets
 /// the empty flag and no envelope.

@@ -11,7 +11,9 @@
 //! - `rtree`: Sort-Tile-Recursive packing of a new R-tree index.
 //! - `read`: [`GpkgSource`].
 //! - `store`: [`GpkgStore`]; `rows`: writing result rows and the job's layers;
-//!   `history`: fold scores and unit errors of a run, removing runs.
+//!   `history`: fold scores and unit errors of a run, removing runs;
+//!   `readback`: rows of any results table, unit geometries and CRS facts
+//!   for `report` and `map`.
 //!
 //! # Results in a GeoPackage
 //! The results use the table and view names and columns of the PostGIS
@@ -47,6 +49,7 @@ mod history;
 pub mod import;
 pub mod locations;
 mod read;
+mod readback;
 mod rows;
 mod rtree;
 pub mod schema;

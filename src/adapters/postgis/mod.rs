@@ -19,6 +19,7 @@ pub mod layers;
 pub mod locations;
 pub mod migrate;
 pub mod read;
+pub mod readback;
 pub mod reads;
 pub mod scoring;
 pub mod store;

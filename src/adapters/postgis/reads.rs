@@ -1,7 +1,9 @@
-//! Reading stored runs back out of a PostGIS results schema, row by row, in
-//! the column order of the one table definition: what `geofold export`
-//! copies into a GeoPackage. One `REPEATABLE READ READ ONLY` transaction
-//! gives every read the same snapshot.
+//! Reading stored runs back out of a PostGIS results schema for `geofold
+//! export`: the job's unit and region layers, SRS rows, and the read-only
+//! snapshot (one `REPEATABLE READ READ ONLY` transaction gives every read the
+//! same snapshot). The rows of the results tables are read by
+//! [`ReadBack`](crate::adapters::readback::ReadBack) (`readback.rs`), which
+//! `report` and `map` share.
 
 use futures_util::{pin_mut, StreamExt};
 use geozero::ToGeo;
@@ -14,10 +16,10 @@ use crate::adapters::gpkg::import::{RegionLayerRow, UnitLayerRow};
 use crate::adapters::gpkg::schema::Srs;
 use crate::error::Error;
 use crate::results::rows::Owned;
-use crate::results::{ColumnType, TableDef};
+use crate::results::ColumnType;
 
 /// The SELECT expression that reads a column as an [`Owned`] value.
-fn read_expression(name: &str, ty: ColumnType) -> String {
+pub(super) fn read_expression(name: &str, ty: ColumnType) -> String {
     let c = quote_ident(name);
     match ty {
         ColumnType::RunId | ColumnType::Json => format!("{c}::text"),
@@ -32,7 +34,8 @@ fn read_expression(name: &str, ty: ColumnType) -> String {
     }
 }
 
-fn owned(
+/// Column `index` of `row`, read by [`read_expression`], as an [`Owned`] value.
+pub(super) fn owned(
     row: &tokio_postgres::Row,
     index: usize,
     ty: ColumnType,
@@ -89,7 +92,7 @@ impl PostgisStore {
     }
 
     /// Streams a query's rows to `on_row`.
-    fn stream(
+    pub(super) fn stream(
         &self,
         sql: &str,
         params: &[&(dyn ToSql + Sync)],
@@ -108,89 +111,6 @@ impl PostgisStore {
                 on_row(&row.map_err(|e| database_error(action, &e))?)?;
             }
             Ok(())
-        })
-    }
-
-    /// Every row of `table` belonging to the runs or inspections (by its
-    /// [`TableDef::owner_column`]), in the definition's
-    /// column order (the serial key of a keyed table is left out: the target
-    /// numbers its own).
-    ///
-    /// # Errors
-    /// Database errors.
-    pub fn read_rows(
-        &self,
-        table: &TableDef,
-        run_ids: &[Uuid],
-        mut visit: impl FnMut(Vec<Owned>) -> Result<(), Error>,
-    ) -> Result<(), Error> {
-        let columns: Vec<String> = table
-            .columns
-            .iter()
-            .map(|c| read_expression(c.name, c.ty))
-            .collect();
-        let order = match table.keying {
-            crate::results::Keying::Serial(key) => format!(" ORDER BY {}", quote_ident(key)),
-            crate::results::Keying::Primary(key) => format!(
-                " ORDER BY {}",
-                key.iter()
-                    .map(|k| quote_ident(k))
-                    .collect::<Vec<_>>()
-                    .join(", ")
-            ),
-            crate::results::Keying::PerUnit => String::new(),
-        };
-        let Some(owner) = table.owner_column() else {
-            return Err(Error::Internal(format!(
-                "{} has no run or analysis column to read by",
-                table.name
-            )));
-        };
-        let sql = format!(
-            "SELECT {} FROM {}.{} WHERE {} = ANY($1){order}",
-            columns.join(", "),
-            quote_ident(self.schema()),
-            quote_ident(table.name),
-            quote_ident(owner)
-        );
-        let action = format!("reading {}.{}", self.schema(), table.name);
-        self.stream(&sql, &[&run_ids], &action, |row| {
-            let mut values = Vec::with_capacity(table.columns.len());
-            for (index, column) in table.columns.iter().enumerate() {
-                values.push(owned(row, index, column.ty).map_err(|e| database_error(&action, &e))?);
-            }
-            visit(values)
-        })
-    }
-
-    /// The rows of a table keyed by job (`jobs`) for one job.
-    ///
-    /// # Errors
-    /// Database errors.
-    pub fn read_rows_by_job(
-        &self,
-        table: &TableDef,
-        job: &str,
-        mut visit: impl FnMut(Vec<Owned>) -> Result<(), Error>,
-    ) -> Result<(), Error> {
-        let columns: Vec<String> = table
-            .columns
-            .iter()
-            .map(|c| read_expression(c.name, c.ty))
-            .collect();
-        let sql = format!(
-            "SELECT {} FROM {}.{} WHERE job = $1",
-            columns.join(", "),
-            quote_ident(self.schema()),
-            quote_ident(table.name)
-        );
-        let action = format!("reading {}.{}", self.schema(), table.name);
-        self.stream(&sql, &[&job], &action, |row| {
-            let mut values = Vec::with_capacity(table.columns.len());
-            for (index, column) in table.columns.iter().enumerate() {
-                values.push(owned(row, index, column.ty).map_err(|e| database_error(&action, &e))?);
-            }
-            visit(values)
         })
     }
 

@@ -313,6 +313,27 @@ fn geographic_maps_state_their_projection() {
 }
 
 #[test]
+fn maps_without_a_crs_say_so_and_measure_in_coordinate_units() {
+    let mut input = tiny_map();
+    input.crs = CrsInfo {
+        srid: 0,
+        name: String::new(),
+        geographic: false,
+        units_name: String::new(),
+        metres_per_unit: 1.0,
+        centre_latitude: None,
+    };
+    let svg = render_map_svg(&input, MapKind::Folds, &MapOptions::default()).unwrap();
+    assert!(
+        svg.contains("No coordinate reference system is defined (SRID 0)"),
+        "{svg}"
+    );
+    assert!(!svg.contains("EPSG:0"));
+    // The tiny fixture is 2,000 units wide: its scale bar is 500 coordinate units.
+    assert!(svg.contains(">500 coordinate units<"), "{svg}");
+}
+
+#[test]
 fn output_is_a_pure_function_of_the_input() {
     let input = grid_map(30, 20, 100.0, 5, 4);
     for kind in [

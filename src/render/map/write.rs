@@ -1,6 +1,7 @@
 //! Writing a map as an SVG document: classes, legend, scale bar, north arrow and caption.
 
 use super::*;
+use crate::render::frame::trim_number;
 
 pub(super) fn write_document(
     input: &MapInput,
@@ -131,7 +132,7 @@ pub(super) fn write_document(
         "<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" fill=\"none\" stroke=\"#999999\" stroke-width=\"0.5\"/>",
         frame.panel_x, frame.panel_y, frame.panel_width, frame.panel_height
     );
-    write_scale_bar(&mut out, frame);
+    write_scale_bar(&mut out, frame, input.crs.srid <= 0);
     write_north_arrow(&mut out, frame, input.crs.geographic);
     legend.write_svg(
         &mut out,
@@ -187,8 +188,14 @@ pub(super) fn write_stroke(out: &mut String, stroke: Option<Stroke>) {
     }
 }
 
-pub(super) fn write_scale_bar(out: &mut String, frame: &MapFrame) {
-    let (_, pixels, label) = frame.scale_bar();
+/// The scale bar; with no CRS (`undefined`) its length is in coordinate units.
+pub(super) fn write_scale_bar(out: &mut String, frame: &MapFrame, undefined: bool) {
+    let (length, pixels, label) = frame.scale_bar();
+    let label = if undefined {
+        format!("{} coordinate units", trim_number(length))
+    } else {
+        label
+    };
     let x = frame.panel_x + 12.0;
     let y = frame.panel_y + frame.panel_height - 16.0;
     let half = pixels / 2.0;
@@ -246,8 +253,16 @@ pub(super) fn write_caption(
     height: u32,
 ) {
     let crs = &input.crs;
-    let mut first = format!("EPSG:{} {}", crs.srid, crs.name);
+    let mut first = if crs.srid > 0 {
+        format!("EPSG:{} {}", crs.srid, crs.name)
+    } else {
+        format!(
+            "No coordinate reference system is defined (SRID {}): coordinates are drawn as plain units",
+            crs.srid
+        )
+    };
     match frame.standard_parallel {
+        _ if crs.srid <= 0 => {}
         Some(phi) => {
             let _ = write!(
                 first,

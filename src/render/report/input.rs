@@ -260,6 +260,27 @@ pub struct NearestDistances {
     pub prediction: Vec<f64>,
 }
 
+/// Global Moran's I of the run's held-out residuals: whether the errors
+/// cluster in space.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ResidualMoran {
+    /// The spatial weights, in words: "the 8 nearest units as neighbours (knn:8, weights
+    /// row-standardised)".
+    pub weights: String,
+    /// Units used.
+    pub units: u64,
+    /// Units a seeded sample was drawn from, when one was.
+    pub sampled_from: Option<u64>,
+    /// Moran's I.
+    pub value: f64,
+    /// Its expectation under no autocorrelation.
+    pub expected: f64,
+    /// z under randomisation.
+    pub z: f64,
+    /// Two-sided p under randomisation.
+    pub p_value: f64,
+}
+
 /// One run in a job's score history.
 #[derive(Debug, Clone, PartialEq)]
 pub struct HistoryPoint {
@@ -307,6 +328,8 @@ pub struct ReportInput {
     pub comparison: Option<Comparison>,
     /// Per-fold coefficients; empty when not stored.
     pub coefficients: Vec<FoldCoefficient>,
+    /// Moran's I of the held-out residuals, if stored.
+    pub held_out_moran: Option<ResidualMoran>,
     /// Semivariogram, if stored.
     pub semivariogram: Option<Semivariogram>,
     /// Correlogram, if stored.

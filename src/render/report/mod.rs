@@ -10,7 +10,8 @@
 //! Sections, in order: what the numbers mean (skill, not causes); the run's
 //! settings in plain words; pooled and per-fold scores with their spread and the
 //! training-mean baseline; random versus spatial folds; the maps; and, when
-//! stored, per-fold coefficients, the semivariogram and correlogram, the
+//! stored, per-fold coefficients, Moran's I of the held-out residuals, the
+//! semivariogram and correlogram, the
 //! nearest-distance distributions, and the job's score history with its gates.
 //! A section whose data is absent is left out.
 //!
@@ -142,7 +143,10 @@ pub fn render_report_html(
     if !report.coefficients.is_empty() {
         sections::coefficients(&mut page, &report.coefficients);
     }
-    if report.semivariogram.is_some() || report.correlogram.is_some() {
+    if report.held_out_moran.is_some()
+        || report.semivariogram.is_some()
+        || report.correlogram.is_some()
+    {
         sections::autocorrelation(&mut page, report);
     }
     if let Some(distances) = &report.nearest_distances {
@@ -173,7 +177,7 @@ table{border-collapse:collapse;margin:.5em 0 1em}th,td{border:1px solid #d0d0d0;
 td.num,th.num{text-align:right;font-variant-numeric:tabular-nums}th{background:#f2f2f2}\
 dl.settings{display:grid;grid-template-columns:max-content 1fr;gap:.25em 1.2em}dl.settings dt{font-weight:bold}dl.settings dd{margin:0}\
 figure{margin:1em 0}figure svg{max-width:100%;height:auto}figcaption{color:#444;font-size:.92em}\
-.sentence{font-size:1.05em}footer{margin-top:2.5em;color:#555;font-size:.9em;border-top:1px solid #ccc}";
+.sentence{font-size:1.05em}.advice{white-space:pre-line}footer{margin-top:2.5em;color:#555;font-size:.9em;border-top:1px solid #ccc}";
 
 #[cfg(test)]
 mod tests;

@@ -5,6 +5,7 @@
 
 use super::*;
 use crate::render::fixtures::{full_report, grid_map, minimal_report, tiny_map};
+use input::FoldScores;
 
 fn inline_svgs(html: &str) -> Vec<&str> {
     let mut found = Vec::new();
@@ -81,7 +82,7 @@ fn minimal_report_leaves_out_what_is_absent() {
         );
     }
     assert!(html.contains("<section id=\"scores\""));
-    assert!(html.contains("2 (target is missing)"));
+    assert!(html.contains("2 rows (target is missing: 2)"));
     assert!(html.contains("block size 1,000 m"));
 }
 
@@ -185,4 +186,24 @@ fn variogram_models_follow_their_formulas() {
         ..spherical.clone()
     };
     assert!((exponential.gamma(100.0) - (1.0 + 2.0 * (1.0 - (-3.0f64).exp()))).abs() < 1e-12);
+}
+
+#[test]
+fn hundreds_of_folds_are_summed_up_not_listed() {
+    let mut report = minimal_report();
+    let template = report.scores.folds[0].clone();
+    report.scores.folds = (1..=sections::MAX_FOLDS_LISTED as u32 + 1)
+        .map(|fold| FoldScores {
+            fold,
+            ..template.clone()
+        })
+        .collect();
+    let html = render_report_html(&report, None, &ReportOptions::default()).unwrap();
+    assert!(html.contains("The run has 201 folds of one test unit each"));
+    assert!(!html.contains("<h3>Per fold</h3>"));
+    assert!(!html.contains("per fold</title>"));
+    // At the limit they are still listed.
+    report.scores.folds.pop();
+    let html = render_report_html(&report, None, &ReportOptions::default()).unwrap();
+    assert!(html.contains("<h3>Per fold</h3>"));
 }

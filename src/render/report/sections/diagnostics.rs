@@ -4,6 +4,9 @@ use super::*;
 
 pub fn autocorrelation(page: &mut String, report: &ReportInput) {
     page.push_str("<section id=\"autocorrelation\"><h2>Spatial autocorrelation</h2>");
+    if let Some(moran) = &report.held_out_moran {
+        held_out_moran(page, moran);
+    }
     if let Some(variogram) = &report.semivariogram {
         semivariogram(page, variogram, &report.run.target_unit);
     }
@@ -11,6 +14,38 @@ pub fn autocorrelation(page: &mut String, report: &ReportInput) {
         correlogram_figure(page, correlogram);
     }
     page.push_str("</section>");
+}
+
+pub(super) fn held_out_moran(page: &mut String, moran: &ResidualMoran) {
+    let sample = moran.sampled_from.map_or(String::new(), |n| {
+        format!(
+            ", a seeded sample of {} of {} units",
+            count(moran.units),
+            count(n)
+        )
+    });
+    let reading = if moran.p_value < 0.05 && moran.value > moran.expected {
+        "The errors cluster in space: neighbouring units tend to be missed in the same direction, so \
+         the model leaves out something spatial."
+    } else if moran.p_value < 0.05 {
+        "Neighbouring units tend to have errors of opposite sign."
+    } else {
+        "No clear spatial clustering of the errors at this scale."
+    };
+    let _ = write!(
+        page,
+        "<h3>Held-out residuals</h3><p class=\"sentence\">Moran's I of the held-out residuals is {} \
+         (expected {} without spatial structure; z {}, two-sided p {} under randomisation), taking {} \
+         over {} units{}. {}</p>",
+        number(moran.value),
+        number(moran.expected),
+        significant(moran.z, 3),
+        significant(moran.p_value, 2),
+        escape(&moran.weights),
+        count(moran.units),
+        sample,
+        reading
+    );
 }
 
 pub(super) fn semivariogram(page: &mut String, variogram: &Semivariogram, target_unit: &str) {

@@ -3,8 +3,8 @@
 use std::fmt::Write as _;
 
 use super::input::{
-    Better, Comparison, Correlogram, FoldCoefficient, NearestDistances, ReportInput, RunFacts,
-    Score, ScoreDefinition, ScoreHistory, Semivariogram,
+    Better, Comparison, Correlogram, FoldCoefficient, NearestDistances, ReportInput, ResidualMoran,
+    RunFacts, Score, ScoreDefinition, ScoreHistory, Semivariogram,
 };
 use crate::core::metrics::spread;
 use crate::render::chart::{bar_chart, Marker, Series, XyChart};
@@ -21,6 +21,9 @@ pub(super) use diagnostics::*;
 /// marker and dash as well.
 const BLUE: Rgb8 = Rgb8::from_hex(0x2c4ea5);
 const BROWN: Rgb8 = Rgb8::from_hex(0x8c3803);
+
+/// Folds listed one by one (chart and table) at most; more are summed up.
+pub const MAX_FOLDS_LISTED: usize = 200;
 
 fn number(value: f64) -> String {
     significant(value, 4)
@@ -105,9 +108,14 @@ pub fn settings(page: &mut String, run: &RunFacts) {
                 .units_skipped
                 .iter()
                 .filter(|s| s.count > 0)
-                .map(|s| format!("{} ({})", count(s.count), s.reason))
+                .map(|s| format!("{}: {}", s.reason, count(s.count)))
                 .collect();
-            format!("{}: {}", count(skipped), reasons.join("; "))
+            format!(
+                "{} {} ({})",
+                count(skipped),
+                if skipped == 1 { "row" } else { "rows" },
+                reasons.join("; ")
+            )
         },
     ));
     rows.push(("Data fingerprint".to_string(), run.fingerprint.clone()));
@@ -216,7 +224,24 @@ pub fn scores(page: &mut String, report: &ReportInput) {
         );
     }
     page.push_str("</tbody></table>");
-    if let (Some(headline), false) = (names.first(), table.folds.is_empty()) {
+    // Hundreds of folds (leave-one-out, say) are summed up, not listed: the
+    // page stays readable and small at any number of units.
+    let listed = !table.folds.is_empty() && table.folds.len() <= MAX_FOLDS_LISTED;
+    if table.folds.len() > MAX_FOLDS_LISTED {
+        let single = table.folds.iter().all(|f| f.n_test <= 1);
+        let _ = write!(
+            page,
+            "<p>The run has {} folds{}; their scores are summed up above and not listed one by one \
+             (each fold's scores are in the results table <code>fold_scores</code>).</p>",
+            count(table.folds.len() as u64),
+            if single {
+                " of one test unit each, so a fold's scores are one unit's error"
+            } else {
+                ""
+            }
+        );
+    }
+    if let (Some(headline), true) = (names.first(), listed) {
         let unit = unit_of(report, headline);
         let points: Vec<(f64, f64, f64)> = table
             .folds
@@ -261,7 +286,7 @@ pub fn scores(page: &mut String, report: &ReportInput) {
             escape(headline)
         );
     }
-    if !table.folds.is_empty() {
+    if listed {
         page.push_str(
             "<h3>Per fold</h3><table class=\"folds\"><thead><tr><th class=\"num\">Repetition</th>\
              <th class=\"num\">Fold</th><th class=\"num\">Training units</th><th class=\"num\">Test units</th>",
