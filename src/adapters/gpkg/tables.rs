@@ -137,14 +137,15 @@ pub fn prepare(conn: &Connection, path: &Path, triggers: TriggerSet) -> Result<(
             ),
         });
     }
-    if current < RESULTS_VERSION {
-        // Later versions only add tables: every table not there yet is made,
-        // then version 1's data is carried over.
-        for table in TABLES {
-            if !schema::has_table(conn, "main", table.name).map_err(error)? {
-                create(conn, table, triggers).map_err(error)?;
-            }
+    // Versions after 2 only add tables, so every table not there yet is made,
+    // on every run (a file made by an earlier build of this version gains the
+    // tables it lacks).
+    for table in TABLES {
+        if !schema::has_table(conn, "main", table.name).map_err(error)? {
+            create(conn, table, triggers).map_err(error)?;
         }
+    }
+    if current < RESULTS_VERSION {
         if current == 1 {
             upgrade_from_v1(conn, path)?;
         }

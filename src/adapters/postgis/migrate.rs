@@ -111,17 +111,30 @@ pub fn prepare_schema(session: &mut Session, schema: &str) -> Result<(), Error> 
                 ),
             });
         }
-        if current < RESULTS_VERSION {
-            // Later versions only add tables: every table not there yet is
-            // made, then version 1's data is carried over.
-            for table in TABLES {
-                if has_table(&tx, schema, table.name).await? {
-                    continue;
-                }
-                tx.batch_execute(&create_table(table, Dialect::Postgis, &quoted))
-                    .await
-                    .map_err(|e| database_error(&format!("{action}: creating {}", table.name), &e))?;
+        // Versions after 2 only add tables, so every table not there yet is
+        // made, on every run: a store made by an earlier build of this
+        // version gains the tables it lacks, and the creation needs no
+        // privilege beyond owning the schema.
+        let present: Vec<String> = tx
+            .query(
+                "SELECT c.relname::text FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace \
+                 WHERE n.nspname = $1",
+                &[&schema],
+            )
+            .await
+            .map_err(|e| database_error(&action, &e))?
+            .iter()
+            .map(|row| row.get(0))
+            .collect();
+        for table in TABLES {
+            if present.iter().any(|name| name == table.name) {
+                continue;
             }
+            tx.batch_execute(&create_table(table, Dialect::Postgis, &quoted))
+                .await
+                .map_err(|e| database_error(&format!("{action}: creating {}", table.name), &e))?;
+        }
+        if current < RESULTS_VERSION {
             if current == 1 {
                 upgrade_from_v1(&tx, schema).await?;
             }
