@@ -52,7 +52,10 @@ fn demo_with_no_arguments_writes_a_geopackage_gdal_opens() {
     );
     let file = workdir.path("geofold-demo.gpkg");
     // The job lock file sits beside it (left out of the listing: it stays by design).
-    assert_eq!(listing(workdir.root()), ["geofold-demo.gpkg"]);
+    assert_eq!(
+        listing(workdir.root()),
+        ["geofold-demo.gpkg", "geofold-demo.html"]
+    );
 
     // The same again as JSON: the file is replaced, not appended to.
     let output = workdir.run(&["demo", "--json"]);
@@ -273,6 +276,11 @@ fn demo_with_db_loads_the_scenario_and_writes_grid_and_random_runs() {
             "geofold_demo.demo_nitrate",
             "geofold_demo.demo_nitrate_regions",
             "spatial vs random folds",
+            "open geofold-demo.html in a web browser",
         ],
     );
+    // The report of the PostGIS run sits in the working directory.
+    let page = std::fs::read_to_string(workdir.path("geofold-demo.html")).unwrap();
+    assert!(page.starts_with("<!DOCTYPE html>"), "{}", &page[..40]);
+    assert!(page.contains("demo_nitrate"), "the report names the job");
 }

@@ -204,8 +204,12 @@ fn a_postgis_run_and_its_geopackage_export_report_byte_for_byte_alike() {
 #[test]
 fn the_demo_report_opens_in_chromium_and_shows_the_fold_colours() {
     let workdir = Workdir::new();
-    assert_eq!(code(&workdir.run(&["demo", "--out", "demo.gpkg"])), 0);
-    // --gpkg is --results-gpkg for the reading commands.
+    // The demo writes its report next to its GeoPackage.
+    let demo = ok_json(&workdir.run(&["demo", "--out", "demo.gpkg", "--json"]));
+    assert_eq!(demo["report"]["file"], "demo.html");
+    assert_eq!(demo["report"]["units_without_geometry"], 0);
+    // The same report again from the stored run (--gpkg is --results-gpkg
+    // for the reading commands): byte for byte what the demo wrote.
     let doc = ok_json(&workdir.run(&[
         "report",
         "--gpkg",
@@ -213,12 +217,16 @@ fn the_demo_report_opens_in_chromium_and_shows_the_fold_colours() {
         "--job",
         "demo_nitrate",
         "--to",
-        "demo.html",
+        "again.html",
         "--target-unit",
         "mg/L",
         "--json",
     ]));
     assert_eq!(doc["units_without_geometry"], 0);
+    assert_eq!(
+        std::fs::read(workdir.path("again.html")).unwrap(),
+        std::fs::read(workdir.path("demo.html")).unwrap()
+    );
     let page = workdir.path("demo.html");
     let dom = dom_without_console_errors(&page);
     for id in [

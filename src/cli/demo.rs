@@ -14,7 +14,10 @@ use serde::Serialize;
 
 use crate::adapters::postgis::Session;
 use crate::adapters::ColumnSpec;
+use crate::cli::output::RunArgs as RunChoiceArgs;
+use crate::cli::report::{ReportArgs, ReportWritten};
 use crate::cli::run::DEFAULT_SEED;
+use crate::cli::store::StoreArgs;
 use crate::core::options::Options;
 use crate::demo::{generate, DEMO_BLOCK_SIZE_M, DEMO_FEATURES, DEMO_LAYER, DEMO_TARGET};
 use crate::error::Error;
@@ -49,6 +52,10 @@ pub struct DemoArgs {
     /// Seed of the fold assignment.
     #[arg(long, default_value_t = DEFAULT_SEED)]
     pub seed: u64,
+    /// The HTML report of the blocked run (default: next to the GeoPackage, with .html; with
+    /// --db, geofold-demo.html in the current directory).
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
     /// Print the summary as JSON.
     #[arg(long)]
     pub json: bool,
@@ -68,6 +75,8 @@ pub struct DemoOutcome {
     pub buffered: Summary,
     /// What a reader should take from the comparison, in plain words.
     pub takeaway: Vec<String>,
+    /// The HTML report of the blocked run.
+    pub report: ReportWritten,
     /// What to open.
     pub hint: String,
 }
@@ -90,6 +99,11 @@ impl DemoOutcome {
         out.push('\n');
         out.push_str(&self.hint);
         out.push('\n');
+        out.push_str(&format!(
+            "open {} in a web browser: the report of the blocked run, with its maps, the comparison with \
+             random folds and the inspection (no network needed)\n",
+            self.report.file
+        ));
         out
     }
 }
@@ -191,12 +205,33 @@ pub fn run(args: &DemoArgs) -> Result<DemoOutcome, Error> {
         ..base
     })?;
     let takeaway = takeaway(&blocks, &buffered);
+    let report_file = args.report.clone().unwrap_or_else(|| match &args.db {
+        Some(_) => PathBuf::from("geofold-demo.html"),
+        None => args.out.with_extension("html"),
+    });
+    let report = crate::cli::report::run(&ReportArgs {
+        store: StoreArgs {
+            db: args.db.clone(),
+            results_schema: "geofold_demo".into(),
+            results_gpkg: args.db.is_none().then(|| args.out.clone()),
+            config: None,
+        },
+        run: RunChoiceArgs {
+            run: blocks.runs.first().map(|r| r.run_id.clone()),
+            job: None,
+        },
+        to: report_file,
+        target_unit: "mg/L".into(),
+        fold: None,
+        json: false,
+    })?;
     Ok(DemoOutcome {
         exit_code: crate::error::exit::OK,
         inspection,
         blocks,
         buffered,
         takeaway,
+        report,
         hint,
     })
 }

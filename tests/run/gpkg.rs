@@ -471,7 +471,11 @@ fn a_failed_run_leaves_no_result_rows() {
         "the failed runs say why"
     );
     gdal_validates(&file);
-    assert_eq!(listing(workdir.root()), ["geofold-demo.gpkg"]);
+    // Nothing beside the demo's own files (its GeoPackage and report).
+    assert_eq!(
+        listing(workdir.root()),
+        ["geofold-demo.gpkg", "geofold-demo.html"]
+    );
 }
 
 #[test]
