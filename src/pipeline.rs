@@ -46,7 +46,7 @@ use crate::adapters::{
 };
 use crate::core::cells::Cells;
 use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
-use crate::core::diagnostics::held_out::HeldOutWeights;
+use crate::core::diagnostics::held_out::{HeldOutMoran, HeldOutWeights};
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
 use crate::core::matching::{prediction_distances, Matching};
@@ -60,7 +60,7 @@ use crate::core::validate::{
 use crate::error::{exit, Error, Location};
 use crate::progress::{Phase, Progress, Silent};
 use crate::report::Summary;
-use crate::results::rows::{run_rows, FinishedRun, RunRecord, Stage};
+use crate::results::rows::{run_rows, FinishedRun, LateFigures, RunRecord, Stage};
 use crate::spec::{Limits, PredictionRef, ResultsRef, RunSpec, SourceRef};
 
 /// Opens a source.
@@ -760,37 +760,16 @@ fn fit_and_write(
         elapsed_ms = clock.elapsed().as_millis() as u64,
         "validated"
     );
+    // The per-run diagnostics are computed on another thread while the
+    // per-unit rows are written; the write takes them last, in the same
+    // transaction.
     let clock = std::time::Instant::now();
-    if !spec.assign_only {
-        attach_held_out_moran(&mut outcomes, data, &checked.residual_weights, spec.seed);
-    }
-    tracing::info!(
-        phase = "diagnostics",
-        elapsed_ms = clock.elapsed().as_millis() as u64,
-        "held-out residual Moran's I"
-    );
-    let clock = std::time::Instant::now();
-    let cells = Cells::new(&data.points);
-    for outcome in &mut outcomes {
-        if let Some(first) = outcome.repetitions.first() {
-            outcome.fold_distances = fold_distances(&first.folds, &data.points, &cells, spec.seed);
-        }
-        outcome.fold_distances.extend(
-            context
-                .prediction
-                .and_then(|p| summarise("prediction", None, p, None)),
-        );
-    }
-    tracing::info!(
-        phase = "diagnostics",
-        elapsed_ms = clock.elapsed().as_millis() as u64,
-        "test-to-training distances"
-    );
-    let clock = std::time::Instant::now();
+    let late: Vec<LateFigures> = outcomes.iter().map(|_| LateFigures::default()).collect();
     let finished: Vec<FinishedRun<'_>> = records
         .iter()
         .zip(&outcomes)
-        .map(|(record, outcome)| FinishedRun {
+        .zip(&late)
+        .map(|((record, outcome), late)| FinishedRun {
             record,
             outcome,
             stage: if spec.assign_only {
@@ -798,16 +777,38 @@ fn fit_and_write(
             } else {
                 Stage::Complete
             },
+            late: Some(late),
         })
         .collect();
     let rows: u64 = finished
         .iter()
         .flat_map(|run| run_rows(data, run, info.srid))
+        .filter(|rows| !rows.is_late())
         .map(|rows| rows.len() as u64)
         .sum();
     progress.start(Phase::Write, Some(rows));
-    let report = store.commit(info, data, &finished);
+    let (report, moran_problems) = std::thread::scope(|scope| {
+        let figures = scope.spawn(|| late_figures(context, &outcomes, &late));
+        let report = store.commit(info, data, &finished);
+        // A thread that panicked set nothing; the write has waited for it
+        // only if it got as far as these rows.
+        let problems = figures.join().unwrap_or_default();
+        (report, problems)
+    });
     progress.finish(if report.is_ok() { rows } else { 0 });
+    drop(finished);
+    for ((outcome, late), problem) in outcomes.iter_mut().zip(late).zip(moran_problems) {
+        outcome.held_out_moran = late
+            .held_out_moran
+            .into_inner()
+            .and_then(|m| m.into_iter().next());
+        outcome.fold_distances = late.fold_distances.into_inner().unwrap_or_default();
+        if let (Some(problem), Some(rep)) = (problem, outcome.repetitions.first_mut()) {
+            rep.folds.warnings.push(format!(
+                "Moran's I of the held-out residuals was not computed: {problem}"
+            ));
+        }
+    }
     let report = report?;
     tracing::info!(
         phase = "write",
@@ -912,14 +913,14 @@ fn scale_warnings(
 }
 
 /// Moran's I of each run's held-out residuals, with the same weights for
-/// every run of the invocation; a run whose statistic cannot be computed
-/// (constant or missing residuals) gets a warning instead.
-pub(crate) fn attach_held_out_moran(
-    outcomes: &mut [RunOutcome],
+/// every run of the invocation, or why it could not be computed (constant or
+/// missing residuals).
+fn held_out_morans(
+    outcomes: &[RunOutcome],
     data: &Dataset,
     rule: &crate::spec::WeightsRule,
     seed: u64,
-) {
+) -> Vec<Result<HeldOutMoran, String>> {
     let weights = rule
         .for_points()
         .map_err(|e| e.to_string())
@@ -927,11 +928,26 @@ pub(crate) fn attach_held_out_moran(
             HeldOutWeights::new(&data.points, point_rule, &rule.name(), seed)
                 .map_err(|e| e.to_string())
         });
-    for outcome in outcomes {
-        let result = weights.as_ref().map_err(Clone::clone).and_then(|w| {
-            w.moran(&outcome.held_out_residuals(&data.target))
-                .map_err(|e| e.to_string())
-        });
+    outcomes
+        .iter()
+        .map(|outcome| {
+            weights.as_ref().map_err(Clone::clone).and_then(|w| {
+                w.moran(&outcome.held_out_residuals(&data.target))
+                    .map_err(|e| e.to_string())
+            })
+        })
+        .collect()
+}
+
+/// [`held_out_morans`] into the outcomes, a warning where it failed.
+pub(crate) fn attach_held_out_moran(
+    outcomes: &mut [RunOutcome],
+    data: &Dataset,
+    rule: &crate::spec::WeightsRule,
+    seed: u64,
+) {
+    let found = held_out_morans(outcomes, data, rule, seed);
+    for (outcome, result) in outcomes.iter_mut().zip(found) {
         match result {
             Ok(moran) => outcome.held_out_moran = Some(moran),
             Err(problem) => {
@@ -943,4 +959,67 @@ pub(crate) fn attach_held_out_moran(
             }
         }
     }
+}
+
+/// Fills every run's [`LateFigures`] (both cells, always: the write waits
+/// for them) and returns, per run, why its Moran's I could not be computed.
+fn late_figures(
+    context: &Context<'_>,
+    outcomes: &[RunOutcome],
+    late: &[LateFigures],
+) -> Vec<Option<String>> {
+    let (spec, data) = (context.spec, context.data);
+    let computed = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        let clock = std::time::Instant::now();
+        let morans = if spec.assign_only {
+            vec![Err(String::new()); outcomes.len()]
+        } else {
+            held_out_morans(outcomes, data, &context.checked.residual_weights, spec.seed)
+        };
+        let mut problems = Vec::with_capacity(outcomes.len());
+        for (result, cell) in morans.into_iter().zip(late) {
+            match result {
+                Ok(moran) => {
+                    let _ = cell.held_out_moran.set(vec![moran]);
+                    problems.push(None);
+                }
+                Err(problem) => {
+                    let _ = cell.held_out_moran.set(Vec::new());
+                    problems.push((!problem.is_empty()).then_some(problem));
+                }
+            }
+        }
+        tracing::info!(
+            phase = "diagnostics",
+            elapsed_ms = clock.elapsed().as_millis() as u64,
+            "held-out residual Moran's I"
+        );
+        let clock = std::time::Instant::now();
+        let cells = Cells::new(&data.points);
+        for (outcome, cell) in outcomes.iter().zip(late) {
+            let mut summaries = outcome
+                .repetitions
+                .first()
+                .map(|first| fold_distances(&first.folds, &data.points, &cells, spec.seed))
+                .unwrap_or_default();
+            summaries.extend(
+                context
+                    .prediction
+                    .and_then(|p| summarise("prediction", None, p, None)),
+            );
+            let _ = cell.fold_distances.set(summaries);
+        }
+        tracing::info!(
+            phase = "diagnostics",
+            elapsed_ms = clock.elapsed().as_millis() as u64,
+            "test-to-training distances"
+        );
+        problems
+    }));
+    // Whatever happened, no cell stays empty.
+    for cell in late {
+        let _ = cell.held_out_moran.set(Vec::new());
+        let _ = cell.fold_distances.set(Vec::new());
+    }
+    computed.unwrap_or_else(|_| vec![Some("the computation failed".into()); outcomes.len()])
 }

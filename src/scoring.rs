@@ -205,6 +205,7 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
         record: &record,
         outcome: &outcome,
         stage: Stage::Scored,
+        late: None,
     }];
     let report = store.commit(&info, &data, &finished)?;
     let scheme_options: Options = run.parameters["scheme"]

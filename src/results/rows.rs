@@ -11,6 +11,9 @@ use super::{
     FOLD_SCORE_VALUES, HELD_OUT, NEAREST_DISTANCES, RUN_SCORE_VALUES, UNIT_SUMMARIES,
 };
 use crate::core::diagnostics::fold_distances::DistanceSummary;
+use std::sync::OnceLock;
+
+use crate::core::diagnostics::held_out::HeldOutMoran;
 use crate::core::diagnostics::moran::{Inference, Moran};
 use crate::core::units::{Dataset, UnitId};
 use crate::core::validate::{unit_summary, RunOutcome};
@@ -121,6 +124,11 @@ pub trait RowSource<'a> {
     }
     /// Row `row`'s values, in column order, into `out` (cleared first).
     fn fill(&self, row: usize, out: &mut Vec<Value<'a>>);
+    /// True when the rows are still being computed while earlier tables are
+    /// written: `len` and `fill` wait for them ([`LateFigures`]).
+    fn is_late(&self) -> bool {
+        false
+    }
 }
 
 /// A finished run and its outcome.
@@ -131,6 +139,52 @@ pub struct FinishedRun<'a> {
     pub outcome: &'a RunOutcome,
     /// What this write records.
     pub stage: Stage,
+    /// Figures computed while the run's other rows are written; None when
+    /// they are in the outcome already.
+    pub late: Option<&'a LateFigures>,
+}
+
+/// The per-run diagnostics (Moran's I of the held-out residuals, the
+/// nearest-distance summaries), computed on another thread while the
+/// per-unit rows are written, and written last in the same transaction.
+/// Whoever computes them must set both cells, also on failure (empty), or
+/// the write waits for ever.
+#[derive(Debug, Default)]
+pub struct LateFigures {
+    /// Moran's I of the held-out residuals (none, or one).
+    pub held_out_moran: OnceLock<Vec<HeldOutMoran>>,
+    /// The nearest-distance summaries.
+    pub fold_distances: OnceLock<Vec<DistanceSummary>>,
+}
+
+/// Rows of [`LateFigures`]: `len` and `fill` wait until the items are set.
+struct Late<'a, T, F> {
+    table: &'static TableDef,
+    items: &'a OnceLock<Vec<T>>,
+    fill: F,
+}
+
+impl<'a, T, F> RowSource<'a> for Late<'a, T, F>
+where
+    F: Fn(&'a T, &mut Vec<Value<'a>>),
+{
+    fn table(&self) -> &'static TableDef {
+        self.table
+    }
+
+    fn len(&self) -> usize {
+        self.items.wait().len()
+    }
+
+    fn fill(&self, row: usize, out: &mut Vec<Value<'a>>) {
+        out.clear();
+        let items: &'a Vec<T> = self.items.wait();
+        (self.fill)(&items[row], out);
+    }
+
+    fn is_late(&self) -> bool {
+        true
+    }
 }
 
 /// What a write of a run records.
@@ -361,37 +415,47 @@ pub fn run_rows<'a>(
                 Vec::new()
             },
         }),
-        Box::new(Listed {
-            table: &FOLD_DISTANCES,
-            items: outcome.fold_distances.iter().collect(),
-            fill: move |d: &&DistanceSummary, out: &mut Vec<Value<'a>>| {
-                out.extend([
-                    Value::Uuid(run_id),
-                    Value::Str(d.kind),
-                    d.fold.map_or(Value::Null, |f| Value::Int(i64::from(f) + 1)),
-                    Value::Int(d.n as i64),
-                    d.sampled_from.map_or(Value::Null, |n| Value::Int(n as i64)),
-                ]);
-                out.extend(d.quantiles.iter().map(|&q| Value::Float(q)));
-                out.push(Value::Float(d.mean));
-            },
-        }),
-        diagnostics_rows(
-            run_id,
-            outcome
-                .held_out_moran
-                .iter()
-                .map(|h| MoranRow {
-                    subject: "held_out_residuals",
-                    weights: &h.weights,
-                    sampled_from: h.sampled_from,
-                    moran: &h.moran,
-                    regression: None,
-                    permutation: None,
-                })
-                .collect(),
-        ),
     ];
+    let distance_values = move |d: &DistanceSummary, out: &mut Vec<Value<'a>>| {
+        out.extend([
+            Value::Uuid(run_id),
+            Value::Str(d.kind),
+            d.fold.map_or(Value::Null, |f| Value::Int(i64::from(f) + 1)),
+            Value::Int(d.n as i64),
+            d.sampled_from.map_or(Value::Null, |n| Value::Int(n as i64)),
+        ]);
+        out.extend(d.quantiles.iter().map(|&q| Value::Float(q)));
+        out.push(Value::Float(d.mean));
+    };
+    let moran_values = move |h: &'a HeldOutMoran, out: &mut Vec<Value<'a>>| {
+        moran_row_values(run_id, &held_out_row(h), out);
+    };
+    let mut all = all;
+    match run.late {
+        Some(late) => {
+            all.push(Box::new(Late {
+                table: &FOLD_DISTANCES,
+                items: &late.fold_distances,
+                fill: distance_values,
+            }));
+            all.push(Box::new(Late {
+                table: &DIAGNOSTICS,
+                items: &late.held_out_moran,
+                fill: moran_values,
+            }));
+        }
+        None => {
+            all.push(listed(
+                &FOLD_DISTANCES,
+                outcome.fold_distances.iter().collect(),
+                move |d: &&DistanceSummary, out: &mut Vec<Value<'a>>| distance_values(d, out),
+            ));
+            all.push(diagnostics_rows(
+                run_id,
+                outcome.held_out_moran.iter().map(held_out_row).collect(),
+            ));
+        }
+    }
     all.into_iter()
         .filter(|rows| run.stage.writes(rows.table()))
         .collect()
@@ -413,6 +477,18 @@ pub struct MoranRow<'a> {
     pub permutation: Option<(usize, f64)>,
 }
 
+/// The `diagnostics` row of a run's held-out residual Moran's I.
+fn held_out_row(h: &HeldOutMoran) -> MoranRow<'_> {
+    MoranRow {
+        subject: "held_out_residuals",
+        weights: &h.weights,
+        sampled_from: h.sampled_from,
+        moran: &h.moran,
+        regression: None,
+        permutation: None,
+    }
+}
+
 /// `diagnostics` rows of a run or an inspection (`analysis_id`).
 pub fn diagnostics_rows<'a>(
     analysis_id: Uuid,
@@ -421,34 +497,37 @@ pub fn diagnostics_rows<'a>(
     listed(
         &DIAGNOSTICS,
         rows,
-        move |r: &MoranRow<'a>, out: &mut Vec<Value<'a>>| {
-            let m = r.moran;
-            out.extend([
-                Value::Uuid(analysis_id),
-                Value::Str(r.subject),
-                Value::Str("morans_i"),
-                Value::Str(r.weights),
-                Value::Int(m.n as i64),
-                r.sampled_from.map_or(Value::Null, |n| Value::Int(n as i64)),
-                Value::Int(m.islands as i64),
-                Value::Float(m.statistic),
-                Value::Float(m.normality.expected),
-                Value::Float(m.normality.variance),
-                Value::Float(m.normality.z),
-                Value::Float(m.normality.p_two_sided),
-                Value::Float(m.randomisation.expected),
-                Value::Float(m.randomisation.variance),
-                Value::Float(m.randomisation.z),
-                Value::Float(m.randomisation.p_two_sided),
-                Value::float(r.regression.map(|g| g.expected)),
-                Value::float(r.regression.map(|g| g.variance)),
-                Value::float(r.regression.map(|g| g.z)),
-                Value::float(r.regression.map(|g| g.p_two_sided)),
-                Value::Int(r.permutation.map_or(0, |p| p.0 as i64)),
-                Value::float(r.permutation.map(|p| p.1)),
-            ]);
-        },
+        move |r: &MoranRow<'a>, out: &mut Vec<Value<'a>>| moran_row_values(analysis_id, r, out),
     )
+}
+
+/// The values of one `diagnostics` row.
+fn moran_row_values<'a>(analysis_id: Uuid, r: &MoranRow<'a>, out: &mut Vec<Value<'a>>) {
+    let m = r.moran;
+    out.extend([
+        Value::Uuid(analysis_id),
+        Value::Str(r.subject),
+        Value::Str("morans_i"),
+        Value::Str(r.weights),
+        Value::Int(m.n as i64),
+        r.sampled_from.map_or(Value::Null, |n| Value::Int(n as i64)),
+        Value::Int(m.islands as i64),
+        Value::Float(m.statistic),
+        Value::Float(m.normality.expected),
+        Value::Float(m.normality.variance),
+        Value::Float(m.normality.z),
+        Value::Float(m.normality.p_two_sided),
+        Value::Float(m.randomisation.expected),
+        Value::Float(m.randomisation.variance),
+        Value::Float(m.randomisation.z),
+        Value::Float(m.randomisation.p_two_sided),
+        Value::float(r.regression.map(|g| g.expected)),
+        Value::float(r.regression.map(|g| g.variance)),
+        Value::float(r.regression.map(|g| g.z)),
+        Value::float(r.regression.map(|g| g.p_two_sided)),
+        Value::Int(r.permutation.map_or(0, |p| p.0 as i64)),
+        Value::float(r.permutation.map(|p| p.1)),
+    ]);
 }
 
 /// Rows of `table` given by a list of items and a function filling a row from one.
