@@ -241,7 +241,11 @@ fn results_of_a_postgis_source_go_to_a_geopackage_through_export() {
     );
     assert_eq!(code(&unknown), 66);
     assert!(!workdir.path("x.gpkg").exists());
-    assert_eq!(listing(workdir.root()), ["shared.gpkg"]);
+    // The export, and the demo's report from loading the scenario.
+    assert_eq!(
+        listing(workdir.root()),
+        ["geofold-demo.html", "shared.gpkg"]
+    );
 }
 
 #[test]
