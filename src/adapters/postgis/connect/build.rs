@@ -1,4 +1,5 @@
-//! Turning the merged parameters into checked settings: defaults, value checks, and the list of hosts to try.
+//! Turning the merged parameters into checked settings: defaults, value checks, and the list of
+//! hosts to try.
 
 use super::*;
 

@@ -1,4 +1,5 @@
-//! Parsing a libpq connection string: the key=value form with its quoting, and the URI form with percent-encoding and query parameters.
+//! Parsing a libpq connection string: the key=value form with its quoting, and the URI form with
+//! percent-encoding and query parameters.
 
 use super::*;
 

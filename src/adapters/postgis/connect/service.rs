@@ -1,4 +1,5 @@
-//! The connection service file: libpq's lookup of a named service in the user's and the system's pg_service.conf.
+//! The connection service file: libpq's lookup of a named service in the user's and the system's
+//! pg_service.conf.
 
 use super::*;
 

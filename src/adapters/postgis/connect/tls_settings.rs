@@ -1,4 +1,5 @@
-//! The TLS keywords: libpq's checks of sslmode and the certificate files, and the keywords geofold cannot honour.
+//! The TLS keywords: libpq's checks of sslmode and the certificate files, and the keywords geofold
+//! cannot honour.
 
 use super::*;
 

@@ -1,4 +1,5 @@
-//! Reading the TLS files libpq names: root certificates, revocation lists, and the client certificate and key (with libpq's key-permission check).
+//! Reading the TLS files libpq names: root certificates, revocation lists, and the client
+//! certificate and key (with libpq's key-permission check).
 
 use super::*;
 

@@ -1,4 +1,5 @@
-//! Verifying the server certificate as libpq does: the chain against the roots, the validity period, revocation, and for verify-full the host name (with libpq's Common Name fallback).
+//! Verifying the server certificate as libpq does: the chain against the roots, the validity
+//! period, revocation, and for verify-full the host name (with libpq's Common Name fallback).
 
 use super::*;
 

@@ -1,4 +1,5 @@
-//! The passes over pairs of units: exact through a grid of cells as wide as the cutoff, or a seeded, weighted sample.
+//! The passes over pairs of units: exact through a grid of cells as wide as the cutoff, or a
+//! seeded, weighted sample.
 
 use super::*;
 

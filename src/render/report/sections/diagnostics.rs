@@ -1,4 +1,5 @@
-//! The report sections on spatial structure and history: semivariogram, correlogram, nearest-distance distributions, score history with gates.
+//! The report sections on spatial structure and history: semivariogram, correlogram, nearest-
+//! distance distributions, score history with gates.
 
 use super::*;
 
