@@ -1,6 +1,6 @@
 -- geofold results schema, version 1.
--- Applied by geofold itself (never by hand) inside one transaction; the
--- placeholders in braces are filled in by geofold: {schema} is the quoted
+-- Kept to build version-1 stores in the upgrade tests (tests/upgrade.rs);
+-- geofold itself no longer applies it. The placeholders in braces are filled in by geofold: {schema} is the quoted
 -- results schema, {unit_id_type} is bigint or text (the source id's kind),
 -- {srid} is the SRID of the distance CRS of the block polygons.
 

@@ -1,6 +1,6 @@
 -- geofold results schema: version 1 -> 2, applied by geofold itself (never
--- by hand) inside the transaction that creates the version-2 tables from
--- their definitions (src/results/mod.rs) just before this runs. {schema} is
+-- by hand) inside the transaction that creates every current results table
+-- from its definition (src/results/mod.rs) just before this runs. {schema} is
 -- the quoted results schema. Every run is kept:
 -- - runs gains model, family, session and pinned;
 -- - predictions (wide) -> held_out (lean; the errors become a view);

@@ -1,6 +1,6 @@
 //! Results stores made by version 1 of the results tables, upgraded in place
 //! by the next run: every earlier run kept with the same values in the new
-//! tables and views, the old tables gone, `schema_version` 2, the new run
+//! tables and views, the old tables gone, the current `schema_version` (3), the new run
 //! added, and (GeoPackage) a file GDAL validates.
 //!
 //! Each test builds a version-1 store the way the previous geofold left it:

@@ -17,8 +17,10 @@
 //! 5. Create or upgrade the results tables, mark failed the runs of
 //!    processes that are gone, and record the runs as `running`.
 //! 6. Fit and score (with prediction locations, match the folds' nearest
-//!    distances against theirs); Moran's I of the held-out residuals; write
-//!    every result row in one transaction.
+//!    distances against theirs), then write every result row in one
+//!    transaction. Moran's I of the held-out residuals and the fold distances
+//!    are computed on a second thread while the per-unit rows are written,
+//!    and their rows go last in the same transaction (`pipeline/diagnostics.rs`).
 //!    A failure here marks the runs failed and leaves no result rows.
 //!    With `--assign-only` nothing is fitted: the folds are written and the
 //!    runs marked `assigned`, awaiting `geofold score` ([`crate::scoring`]).

@@ -1,5 +1,5 @@
-//! What a run records beside its rows (parameters, gates, the skip-unchanged check) and the
-//! warnings that come from the job's stored history.
+//! What a run checks against the job's stored history: the skip-unchanged check against the
+//! job's last successful run, and the drift gates against the job's baseline.
 
 use super::*;
 

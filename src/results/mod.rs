@@ -386,7 +386,7 @@ pub const FOLD_EXCLUSIONS: TableDef = TableDef {
 /// Summaries of the test-to-training nearest distances of every run.
 pub const FOLD_DISTANCES: TableDef = TableDef {
     name: "fold_distances",
-    about: "geofold: how far test units are from the nearest unit they were trained on, per fold and over all folds of repetition 1 (kind cv), and how far the prediction locations are from the data (kind prediction), as quantiles; samples beyond 5,000 units per fold and 20,000 over all say how many units they came from",
+    about: "geofold: how far test units are from the nearest unit they were trained on, per fold and over all folds of repetition 1 (kind cv), and how far the prediction locations are from the data (kind prediction), as quantiles; beyond 2,000 units per fold and 10,000 over all, a seeded sample (column sampled_from says of how many units)",
     keying: Keying::Serial("distance_id"),
     belongs_to_run: true,
     columns: &[

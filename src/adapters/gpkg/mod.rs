@@ -14,6 +14,9 @@
 //!   `history`: fold scores and unit errors of a run, removing runs;
 //!   `readback`: rows of any results table, unit geometries and CRS facts
 //!   for `report` and `map`.
+//! - `locations`: prediction locations from a layer (`--prediction-layer`);
+//!   `import`: runs copied in from another store (`geofold export`);
+//!   `scoring`: what `geofold score` reads.
 //!
 //! # Results in a GeoPackage
 //! The results use the table and view names and columns of the PostGIS
