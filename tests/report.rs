@@ -17,7 +17,8 @@
 //! - Runs of every scheme (hexagonal grid, k-means, groups, leave-one-out,
 //!   NNDM, kNNDM) report with their four maps and map on both stores; a run
 //!   with prediction locations shows the nearest-distance distributions, their
-//!   medians as PostgreSQL's `percentile_cont` gives them.
+//!   medians as PostgreSQL's `percentile_cont` gives them, in both the
+//!   distributions and the section on how far test units were from training.
 //! - A store without a newer table is read as it is.
 //! - Bad input: an unknown run or job (66, named), a fold the run does not
 //!   have (64), an unwritable file (73, nothing left).
@@ -234,6 +235,7 @@ fn the_demo_report_opens_in_chromium_and_shows_the_fold_colours() {
         "settings",
         "scores",
         "comparison",
+        "test-distances",
         "maps",
         "autocorrelation",
     ] {
@@ -537,7 +539,7 @@ fn nearest_distances_of_a_run_with_prediction_locations_are_reported_on_both_sto
             store_args(&stores, store, "results.gpkg"),
             &["--run", &run, "--to", &file, "--json"],
         ));
-        assert_sections(&doc, &["distances"]);
+        assert_sections(&doc, &["distances", "test-distances"]);
         // The medians as PostgreSQL's percentile_cont computes them over the
         // stored distances (the GeoPackage run stores the same distances).
         let medians = stores.pg.rows(
@@ -562,6 +564,15 @@ fn nearest_distances_of_a_run_with_prediction_locations_are_reported_on_both_sto
                     median("prediction")
                 ),
                 "W (nearest-distance match)",
+                // The run's fold_distances summary (every unit measured: no sample).
+                &format!(
+                    "a median {} m from the nearest unit its model was trained on",
+                    median("cv")
+                ),
+                &format!(
+                    "The places to be predicted are a median {} m from the nearest observed unit",
+                    median("prediction")
+                ),
             ],
         );
         dom_without_console_errors(&stores.workdir.path(&file));

@@ -4,15 +4,18 @@
 
 use std::collections::BTreeMap;
 
-use super::{FoldRecord, InspectionRecord, MoranRecord, Row, RunRecord, StoredRun, UnitRecord};
+use super::{
+    DistanceSummaryRecord, FoldRecord, InspectionRecord, MoranRecord, Row, RunRecord, StoredRun,
+    UnitRecord,
+};
 use crate::adapters::history::Store;
 use crate::adapters::readback::UnitSource;
 use crate::error::{exit, Error, Location};
 use crate::results::rows::Owned;
 use crate::results::{
-    TableDef, COEFFICIENTS, CORRELOGRAM, DIAGNOSTICS, FOLDS, FOLD_EXCLUSIONS, FOLD_REGIONS,
-    FOLD_SCORE_VALUES, HELD_OUT, INSPECTIONS, NEAREST_DISTANCES, RUNS, RUN_SCORE_VALUES,
-    SEMIVARIOGRAM, UNIT_SUMMARIES, VARIOGRAM_FITS,
+    TableDef, COEFFICIENTS, CORRELOGRAM, DIAGNOSTICS, FOLDS, FOLD_DISTANCES, FOLD_EXCLUSIONS,
+    FOLD_REGIONS, FOLD_SCORE_VALUES, HELD_OUT, INSPECTIONS, NEAREST_DISTANCES, RUNS,
+    RUN_SCORE_VALUES, SEMIVARIOGRAM, UNIT_SUMMARIES, VARIOGRAM_FITS,
 };
 
 /// Which run to read.
@@ -177,14 +180,22 @@ pub fn load(
         }
     }
     let diagnostics = moran_rows(store, &id)?;
-    let (inspection, coefficients, nearest_distances) = if reading.job {
+    let (inspection, coefficients, nearest_distances, fold_distances) = if reading.job {
+        let mut partners = id.clone();
+        partners.extend(
+            job_runs
+                .iter()
+                .filter(|r| r.primary_run_id.as_deref() == Some(run.run_id.as_str()))
+                .map(|r| r.run_id.clone()),
+        );
         (
             latest_inspection(store, &run.job)?,
             coefficient_rows(store, &id)?,
             distance_rows(store, &id)?,
+            distance_summaries(store, &partners)?,
         )
     } else {
-        (None, Vec::new(), (Vec::new(), Vec::new()))
+        (None, Vec::new(), (Vec::new(), Vec::new()), Vec::new())
     };
     let mut stored = StoredRun {
         crs: store.crs(run.distance_srid)?,
@@ -200,6 +211,7 @@ pub fn load(
         diagnostics,
         coefficients,
         nearest_distances,
+        fold_distances,
         inspection,
     };
     if reading.units {
@@ -228,6 +240,37 @@ fn distance_rows(store: &mut dyn Store, run: &[String]) -> Result<(Vec<f64>, Vec
     cv.sort_by(f64::total_cmp);
     prediction.sort_by(f64::total_cmp);
     Ok((cv, prediction))
+}
+
+/// `fold_distances` rows of `runs`, in the order of `runs`, then by kind
+/// (cv first) and fold (all folds together first).
+fn distance_summaries(
+    store: &mut dyn Store,
+    runs: &[String],
+) -> Result<Vec<DistanceSummaryRecord>, Error> {
+    let mut found: Vec<DistanceSummaryRecord> = rows(store, &FOLD_DISTANCES, "run_id", runs)?
+        .iter()
+        .filter_map(|values| {
+            let row = Row::new(&FOLD_DISTANCES, values);
+            Some(DistanceSummaryRecord {
+                run_id: row.text("run_id")?,
+                kind: row.text("kind")?,
+                fold: row.int("fold").and_then(|f| u32::try_from(f).ok()),
+                n: u64::try_from(row.int("n")?).ok()?,
+                sampled_from: row.int("sampled_from").and_then(|n| u64::try_from(n).ok()),
+                minimum: row.float("minimum")?,
+                p10: row.float("p10")?,
+                median: row.float("median")?,
+                p90: row.float("p90")?,
+                maximum: row.float("maximum")?,
+            })
+        })
+        .collect();
+    let rank = |run_id: &str| runs.iter().position(|r| r == run_id).unwrap_or(usize::MAX);
+    found.sort_by(|a, b| {
+        (rank(&a.run_id), a.kind != "cv", a.fold).cmp(&(rank(&b.run_id), b.kind != "cv", b.fold))
+    });
+    Ok(found)
 }
 
 /// `coefficients` rows of a run, by repetition, fold and term.

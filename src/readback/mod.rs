@@ -289,6 +289,31 @@ pub struct InspectionRecord {
     pub correlogram: Vec<(f64, f64, u64, Option<f64>)>,
 }
 
+/// One `fold_distances` row: a summary of nearest distances.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DistanceSummaryRecord {
+    /// The run it belongs to.
+    pub run_id: String,
+    /// `cv` (test unit to nearest training unit) or `prediction`.
+    pub kind: String,
+    /// The fold; None for all folds together and for prediction rows.
+    pub fold: Option<u32>,
+    /// Distances summarised.
+    pub n: u64,
+    /// Units a seeded sample was drawn from, if sampled.
+    pub sampled_from: Option<u64>,
+    /// Minimum, 10th, 50th and 90th percentile, maximum.
+    pub minimum: f64,
+    /// 10th percentile.
+    pub p10: f64,
+    /// Median.
+    pub median: f64,
+    /// 90th percentile.
+    pub p90: f64,
+    /// Maximum.
+    pub maximum: f64,
+}
+
 /// Everything of one run the report and the maps are made from.
 #[derive(Debug, Clone, PartialEq)]
 pub struct StoredRun {
@@ -321,6 +346,9 @@ pub struct StoredRun {
     /// report): test unit to nearest training unit in repetition 1, and
     /// prediction location to nearest unit, each ascending; empty otherwise.
     pub nearest_distances: (Vec<f64>, Vec<f64>),
+    /// `fold_distances` rows of the run and of its comparison run (read for
+    /// the report), ordered by run (this run first), kind and fold.
+    pub fold_distances: Vec<DistanceSummaryRecord>,
     /// The job's latest inspection, if any.
     pub inspection: Option<InspectionRecord>,
 }

@@ -15,7 +15,7 @@
 
 use std::collections::BTreeMap;
 
-use super::{length, RunRecord, StoredRun};
+use super::{length, DistanceSummaryRecord, RunRecord, StoredRun};
 use crate::adapters::readback::CrsFacts;
 use crate::adapters::CrsKind;
 use crate::core::folds::build_scheme;
@@ -24,10 +24,10 @@ use crate::core::models::build_model;
 use crate::gates::{choose_baseline, evaluate, Gate as GateRule, Limit, Verdict};
 use crate::pipeline::{BASELINE_RUNS_KEY, GATES_KEY};
 use crate::render::report::input::{
-    Better, Comparison, Correlogram, CorrelogramBin, FittedVariogram, FoldCoefficient, FoldScores,
-    Gate, HistoryPoint, NearestDistances, ReportInput, ResidualMoran, RunFacts, Score,
-    ScoreDefinition, ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin,
-    VariogramModel,
+    Better, Comparison, Correlogram, CorrelogramBin, DistanceRow, FittedVariogram, FoldCoefficient,
+    FoldScores, Gate, HistoryPoint, NearestDistances, ReportInput, ResidualMoran, RunFacts, Score,
+    ScoreDefinition, ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, TestDistances,
+    VariogramBin, VariogramModel,
 };
 use crate::results::rows::MATCH_SCORE;
 
@@ -583,6 +583,59 @@ pub fn report_input(stored: &StoredRun, target_unit: &str) -> ReportInput {
                 prediction: prediction.clone(),
             })
         },
+        test_distances: test_distances(stored),
         history: history(stored, names.first().map(String::as_str), target_unit),
     }
+}
+
+/// The run's `fold_distances` as report rows: this run over all folds and per
+/// fold, the comparison run over all folds, the prediction locations.
+fn test_distances(stored: &StoredRun) -> Option<TestDistances> {
+    let comparison = stored.comparison();
+    let label_of = |row: &DistanceSummaryRecord| -> Option<String> {
+        let mine = row.run_id == stored.run.run_id;
+        match (row.kind.as_str(), row.fold) {
+            ("cv", None) if mine => Some("this run, all folds".to_string()),
+            ("cv", Some(fold)) if mine => Some(format!("fold {fold}")),
+            ("cv", None) => comparison
+                .filter(|c| c.run_id == row.run_id)
+                .map(|c| format!("{} {}-fold, all folds", c.scheme, c.folds)),
+            ("prediction", _) if mine => Some("prediction locations to the data".to_string()),
+            _ => None,
+        }
+    };
+    let rows: Vec<DistanceRow> = stored
+        .fold_distances
+        .iter()
+        .filter_map(|row| {
+            Some(DistanceRow {
+                label: label_of(row)?,
+                n: row.n,
+                sampled_from: row.sampled_from,
+                quantiles: [row.minimum, row.p10, row.median, row.p90, row.maximum],
+            })
+        })
+        .collect();
+    if rows.is_empty() {
+        return None;
+    }
+    let median_of = |run_id: &str, kind: &str| {
+        stored
+            .fold_distances
+            .iter()
+            .find(|r| r.run_id == run_id && r.kind == kind && r.fold.is_none())
+            .map(|r| r.median)
+    };
+    Some(TestDistances {
+        distance_unit: distance_unit(&stored.crs),
+        run_median: median_of(&stored.run.run_id, "cv"),
+        comparison: comparison.and_then(|c| {
+            Some((
+                format!("{} {}-fold", c.scheme, c.folds),
+                median_of(&c.run_id, "cv")?,
+            ))
+        }),
+        prediction_median: median_of(&stored.run.run_id, "prediction"),
+        rows,
+    })
 }

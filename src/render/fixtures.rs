@@ -159,10 +159,10 @@ pub fn grid_map(columns: u32, rows: u32, cell: f64, block: u32, folds: u32) -> M
 }
 
 use super::report::input::{
-    Better, Comparison, Correlogram, CorrelogramBin, FittedVariogram, FoldCoefficient, FoldScores,
-    Gate, HistoryPoint, NearestDistances, ReportInput, ResidualMoran, RunFacts, Score,
-    ScoreDefinition, ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, VariogramBin,
-    VariogramModel,
+    Better, Comparison, Correlogram, CorrelogramBin, DistanceRow, FittedVariogram, FoldCoefficient,
+    FoldScores, Gate, HistoryPoint, NearestDistances, ReportInput, ResidualMoran, RunFacts, Score,
+    ScoreDefinition, ScoreHistory, ScoreTable, Semivariogram, Setting, SkipReason, TestDistances,
+    VariogramBin, VariogramModel,
 };
 
 fn score_list(rmse: f64, mae: f64, bias: f64) -> Vec<Score> {
@@ -260,6 +260,7 @@ pub fn minimal_report() -> ReportInput {
         semivariogram: None,
         correlogram: None,
         nearest_distances: None,
+        test_distances: None,
         history: Vec::new(),
     }
 }
@@ -340,6 +341,26 @@ pub fn full_report() -> ReportInput {
         distance_unit: "m".to_string(),
         cross_validation: (0..200).map(|i| 100.0 + 5.0 * f64::from(i % 40)).collect(),
         prediction: (0..150).map(|i| 300.0 + 9.0 * f64::from(i % 50)).collect(),
+    });
+    report.test_distances = Some(TestDistances {
+        distance_unit: "m".to_string(),
+        run_median: Some(1250.0),
+        comparison: Some(("random 4-fold".to_string(), 400.0)),
+        prediction_median: Some(2000.0),
+        rows: vec![
+            DistanceRow {
+                label: "this run, all folds".to_string(),
+                n: 24_000,
+                sampled_from: Some(40_000),
+                quantiles: [100.0, 500.0, 1250.0, 2000.0, 3000.0],
+            },
+            DistanceRow {
+                label: "fold 1".to_string(),
+                n: 2_000,
+                sampled_from: None,
+                quantiles: [120.0, 520.0, 1300.0, 2100.0, 2900.0],
+            },
+        ],
     });
     report.history = vec![ScoreHistory {
         score: "RMSE".to_string(),

@@ -260,6 +260,37 @@ pub struct NearestDistances {
     pub prediction: Vec<f64>,
 }
 
+/// How far the run's test units were from the nearest unit they were trained
+/// on (per fold and over all folds), beside the same over all folds of the
+/// comparison run and the prediction locations' distances to the data.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TestDistances {
+    /// Distance unit.
+    pub distance_unit: String,
+    /// Median over all folds of this run.
+    pub run_median: Option<f64>,
+    /// Label and median over all folds of the comparison run, if stored.
+    pub comparison: Option<(String, f64)>,
+    /// Median distance from the prediction locations to the data, if given.
+    pub prediction_median: Option<f64>,
+    /// The table: this run over all folds, then per fold, then the
+    /// comparison run and the prediction locations.
+    pub rows: Vec<DistanceRow>,
+}
+
+/// One row of [`TestDistances`]: quantiles of nearest distances.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DistanceRow {
+    /// What the row is: "all folds", "fold 3", "random 5-fold, all folds", …
+    pub label: String,
+    /// Distances summarised.
+    pub n: u64,
+    /// Units a seeded sample was drawn from, if sampled.
+    pub sampled_from: Option<u64>,
+    /// Smallest, 10th percentile, median, 90th percentile, largest.
+    pub quantiles: [f64; 5],
+}
+
 /// Global Moran's I of the run's held-out residuals: whether the errors
 /// cluster in space.
 #[derive(Debug, Clone, PartialEq)]
@@ -336,6 +367,8 @@ pub struct ReportInput {
     pub correlogram: Option<Correlogram>,
     /// Nearest-distance samples, if stored.
     pub nearest_distances: Option<NearestDistances>,
+    /// How far test units were from training, if stored.
+    pub test_distances: Option<TestDistances>,
     /// The job's score history; empty when there is none.
     pub history: Vec<ScoreHistory>,
 }

@@ -137,6 +137,9 @@ pub fn render_report_html(
     if let Some(comparison) = &report.comparison {
         sections::comparison(&mut page, report, comparison);
     }
+    if let Some(distances) = &report.test_distances {
+        sections::test_distances(&mut page, distances);
+    }
     if !figures.is_empty() {
         sections::maps(&mut page, &figures);
     }

@@ -30,6 +30,7 @@ fn full_report_has_every_section_and_valid_svg() {
         "settings",
         "scores",
         "comparison",
+        "test-distances",
         "maps",
         "coefficients",
         "autocorrelation",
@@ -41,6 +42,13 @@ fn full_report_has_every_section_and_valid_svg() {
             "section {id} missing"
         );
     }
+    assert!(html.contains(
+        "a median 1250 m from the nearest unit its model was trained on; with random 4-fold, 400.0 m."
+    ));
+    assert!(
+        html.contains("24,000 of 40,000*"),
+        "a sampled row is marked"
+    );
     let svgs = inline_svgs(&html);
     // 4 maps + score chart + comparison bars + semivariogram + correlogram + distances + history.
     assert_eq!(svgs.len(), 10);
@@ -70,6 +78,7 @@ fn minimal_report_leaves_out_what_is_absent() {
     let html = render_report_html(&minimal_report(), None, &ReportOptions::default()).unwrap();
     for id in [
         "comparison",
+        "test-distances",
         "maps",
         "coefficients",
         "autocorrelation",

@@ -14,7 +14,9 @@ use crate::render::palette::{INK, SPLIT_TEST};
 use crate::render::text::{count, escape, significant, with_unit};
 
 mod diagnostics;
+mod distances;
 pub(super) use diagnostics::*;
+pub(super) use distances::test_distances;
 
 /// Chart colours: a blue and an orange-brown that stay apart for every
 /// colour-vision deficiency (the ends of the diverging ramp), told apart by
