@@ -556,3 +556,109 @@ fn the_demo_scenario_copied_by_gdal_gives_the_same_results_on_both_stores() {
     );
     gdal_validates(&stores.results_gpkg);
 }
+
+/// Issue 7 ("any source in one results schema"): jobs whose sources have text
+/// and integer ids in two SRIDs share one results schema, one results file,
+/// and the demo's file, each with its own typed layers. References: PostGIS's
+/// `geometry_columns` and the catalog for the view types, GDAL for the files.
+#[test]
+fn jobs_with_text_and_integer_ids_in_two_srids_share_one_results_store_and_the_demo_file() {
+    let stores = Stores::from_geojson("both_shared", "lattice", "EPSG:32631", |path| {
+        write_lattice_geojson(path, 8, 6)
+    });
+    // The second source: integer ids, in Web Mercator (EPSG:3857), made by
+    // PostGIS and copied into the source GeoPackage by GDAL.
+    stores.pg.script(
+        "CREATE TABLE {s}.lattice_b AS
+           SELECT ogc_fid AS id, y, x1, x2, ST_Transform(geom, 3857)::geometry(Polygon, 3857) AS geom
+           FROM {s}.lattice;
+         ALTER TABLE {s}.lattice_b ADD PRIMARY KEY (id)",
+    );
+    crate::common::gdal::ogr2ogr(
+        stores.workdir.root(),
+        &[
+            "-update",
+            "source.gpkg",
+            &format!("PG:{}", crate::common::db_uri()),
+            &stores.pg.fill("{s}.lattice_b"),
+            "-nln",
+            "lattice_b",
+        ],
+    );
+    let text_job = [
+        &["--id", "code"],
+        LATTICE_COLUMNS,
+        &["--block-size", "2000"],
+    ]
+    .concat();
+    let integer_job = [
+        &["--id", "id", "--job", "lattice_b"],
+        LATTICE_COLUMNS,
+        &["--block-size", "2000"],
+    ]
+    .concat();
+    for store in BOTH {
+        for (table, args) in [("lattice", &text_job), ("lattice_b", &integer_job)] {
+            let output = stores.workdir.run(&stores.args_on(store, table, args));
+            assert_eq!(code(&output), 0, "{store:?} {table}: {}", stderr(&output));
+        }
+    }
+    let pg = &stores.pg;
+    check_qgis_layer(
+        &pg.results,
+        "lattice",
+        ("fid", "integer"),
+        "POLYGON",
+        32631,
+        47,
+    );
+    check_qgis_layer(
+        &pg.results,
+        "lattice_b",
+        ("fid", "integer"),
+        "POLYGON",
+        3857,
+        47,
+    );
+    assert_eq!(
+        pg.query(
+            "SELECT string_agg(c.relname || ':' || format_type(a.atttypid, a.atttypmod), ' ' ORDER BY c.relname)
+             FROM pg_attribute a JOIN pg_class c ON c.oid = a.attrelid
+             JOIN pg_namespace n ON n.oid = c.relnamespace
+             WHERE n.nspname = '{r}' AND c.relname IN ('lattice', 'lattice_b') AND a.attname = 'unit_id'"
+        ),
+        "lattice:character varying lattice_b:integer",
+        "each job view carries its source's id type"
+    );
+    assert_eq!(
+        pg.query("SELECT count(DISTINCT job) FROM {r}.runs WHERE status = 'succeeded'"),
+        "2"
+    );
+    let layers = gdal_layers(&stores.results_gpkg);
+    assert_eq!(layers["lattice"], layer("Polygon", 47, Some(32631)));
+    assert_eq!(layers["lattice_b"], layer("Polygon", 47, Some(3857)));
+    gdal_validates(&stores.results_gpkg);
+
+    // The demo's file (integer ids, EPSG:32631) takes both jobs too.
+    let demo = stores
+        .workdir
+        .run(&["demo", "--out", "demo.gpkg", "--json"]);
+    assert_eq!(code(&demo), 0, "{}", stderr(&demo));
+    for (table, args) in [("lattice", &text_job), ("lattice_b", &integer_job)] {
+        let mut all: Vec<String> = ["run", "--gpkg", "source.gpkg", "--layer", table]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
+        all.extend(["--results-gpkg".to_string(), "demo.gpkg".to_string()]);
+        all.extend(args.iter().map(|s| s.to_string()));
+        let output = stores.workdir.run(&all);
+        assert_eq!(code(&output), 0, "demo file, {table}: {}", stderr(&output));
+    }
+    let demo_file = stores.workdir.path("demo.gpkg");
+    let layers = gdal_layers(&demo_file);
+    assert_eq!(layers["demo_nitrate"].epsg, Some(32631));
+    assert_eq!(layers["lattice"], layer("Polygon", 47, Some(32631)));
+    assert_eq!(layers["lattice_b"], layer("Polygon", 47, Some(3857)));
+    assert_eq!(layers["lattice_b_regions"].epsg, Some(3857));
+    gdal_validates(&demo_file);
+}
