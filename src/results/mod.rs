@@ -3,8 +3,10 @@
 //! The tables are defined here once ([`TABLES`]): names, columns, types,
 //! keys and meanings. The PostGIS and GeoPackage stores derive their DDL from
 //! these definitions ([`ddl`]), write rows through them ([`rows`]) and create
-//! the derived views from one generator ([`views`]). Adding a column is an
-//! edit here plus a migration in each store's migration list.
+//! the derived views from one generator ([`views`]). A new table needs only
+//! its definition here (every store gains the tables it lacks on its next
+//! run); a changed table needs a new [`RESULTS_VERSION`] and an upgrade step
+//! in each store, as version 1 → 2 has.
 //!
 //! # What is stored and what is derived
 //! Per-unit rows are lean: `held_out` keeps one row per unit and repetition
@@ -577,6 +579,10 @@ pub const CORRELOGRAM: TableDef = TableDef {
         opt("z_random", Float, "z under randomisation (exact pass only)"),
     ],
 };
+
+/// The version of the results tables this geofold writes (`schema_version`
+/// in PostGIS, `store_settings` in a GeoPackage); both stores refuse a newer one.
+pub const RESULTS_VERSION: i32 = 3;
 
 /// Every table, in creation order (parents first).
 pub const TABLES: &[&TableDef] = &[

@@ -21,8 +21,8 @@ use crate::error::Error;
 use crate::results::ddl::{column_definitions, create_table, Dialect};
 use crate::results::{views, ColumnType, TableDef, FOLD_REGIONS, TABLES};
 
-/// The version of the results tables this geofold writes.
-pub const RESULTS_VERSION: i64 = 3;
+/// The version of the results tables this geofold writes, as SQLite stores it.
+pub const RESULTS_VERSION: i64 = crate::results::RESULTS_VERSION as i64;
 
 /// The feature table a geometry results table becomes.
 pub fn feature_table(table: &TableDef) -> FeatureTable {

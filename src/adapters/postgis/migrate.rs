@@ -25,8 +25,7 @@ use crate::results::ddl::{create_table, Dialect};
 use crate::results::views;
 use crate::results::TABLES;
 
-/// The version of the results tables this geofold writes.
-pub const RESULTS_VERSION: i32 = 3;
+pub use crate::results::RESULTS_VERSION;
 
 /// Version 1 → 2: data moved into the new tables, old tables dropped.
 const FROM_V1: &str = include_str!("../../../sql/002_from_v1.sql");
