@@ -195,7 +195,7 @@ pub fn inspect(spec: &InspectSpec) -> Result<Inspection, Error> {
         &spec.columns,
         spec.distance_srid,
         &spec.limits,
-        true,
+        crate::pipeline::Distances::Needed,
         spec.assume_metres,
     )?;
     let job = job_of(spec.job.as_deref(), &spec.source, &spec.results, &info);

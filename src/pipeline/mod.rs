@@ -185,10 +185,16 @@ pub fn run_with(spec: &RunSpec, progress: &dyn Progress) -> Result<Outcome, Erro
         &spec.columns,
         spec.distance_srid,
         &spec.limits,
-        checked.scheme.needs_distances()
-            || checked.model.needs_distances()
+        if checked.model.needs_distances()
             || spec.exclusion_radius.is_some()
-            || spec.prediction.is_some(),
+            || spec.prediction.is_some()
+        {
+            Distances::Needed
+        } else if checked.scheme.needs_distances() {
+            Distances::ByScheme
+        } else {
+            Distances::Unused
+        },
         spec.assume_metres,
     )?;
     let job = job_of(spec.job.as_deref(), &spec.source, &spec.results, &info);

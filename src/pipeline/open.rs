@@ -63,8 +63,21 @@ pub fn job_of(
     }
 }
 
-/// Opens the source and checks that its CRS gives distances when
-/// `needs_distances` (see [`check_crs`]); returns the source and what was
+/// What in a run measures distances, which decides whether a CRS without a
+/// length unit is refused and what the refusal suggests.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Distances {
+    /// Nothing: any CRS will do.
+    Unused,
+    /// Only the fold scheme: random folds would need none.
+    ByScheme,
+    /// Something random folds would not avoid: a model on locations, an
+    /// exclusion buffer, prediction locations, an inspection.
+    Needed,
+}
+
+/// Opens the source and checks that its CRS gives distances when `needs`
+/// says they are measured (see [`check_crs`]); returns the source and what was
 /// found when it was opened, with the CRS unit settled.
 ///
 /// # Errors
@@ -74,36 +87,45 @@ pub fn open_checked(
     columns: &ColumnSpec,
     distance_srid: Option<i32>,
     limits: &Limits,
-    needs_distances: bool,
+    needs: Distances,
     assume_metres: bool,
 ) -> Result<(Box<dyn Source>, SourceInfo), Error> {
     let source = open_source(source, columns, distance_srid, limits)?;
     let mut info = source.info().clone();
-    check_crs(needs_distances, assume_metres, &mut info)?;
+    check_crs(needs, assume_metres, &mut info)?;
     Ok((source, info))
 }
 
-/// Refuses distances (`needed`) on a CRS in degrees or without units,
-/// saying how to fix the data; with `assume_metres`, a CRS without units is
+/// Refuses distances (`needs`) on a CRS in degrees or without units,
+/// saying how to fix the data (and that random folds need none, when only
+/// the scheme measures them); with `assume_metres`, a CRS without units is
 /// taken as metres.
-pub fn check_crs(needed: bool, assume_metres: bool, info: &mut SourceInfo) -> Result<(), Error> {
-    if !needed {
+pub fn check_crs(
+    needs: Distances,
+    assume_metres: bool,
+    info: &mut SourceInfo,
+) -> Result<(), Error> {
+    if needs == Distances::Unused {
         return Ok(());
     }
+    let or_random = if needs == Distances::ByScheme {
+        ", or use --scheme random"
+    } else {
+        ""
+    };
     let what = format!("{}.{}", info.table, info.geom_column);
     match info.crs {
         CrsKind::Projected => Ok(()),
         CrsKind::Geographic => {
             let fix = if info.store == "gpkg" {
                 "reproject the layer to a projected CRS in metres first (for example \
-                 ogr2ogr -t_srs EPSG:N out.gpkg in.gpkg LAYER), or use --scheme random"
+                 ogr2ogr -t_srs EPSG:N out.gpkg in.gpkg LAYER)"
             } else {
-                "pass --distance-srid N with a projected CRS in metres (PostGIS transforms the geometries), \
-                 or use --scheme random"
+                "pass --distance-srid N with a projected CRS in metres (PostGIS transforms the geometries)"
             };
             Err(Error::Usage(format!(
                 "{what} has SRID {}, a longitude/latitude CRS (degrees), but distances and block sizes are in \
-                 metres; {fix}",
+                 metres; {fix}{or_random}",
                 info.source_srid
             )))
         }
@@ -120,7 +142,7 @@ pub fn check_crs(needed: bool, assume_metres: bool, info: &mut SourceInfo) -> Re
             Err(Error::Usage(format!(
                 "{what} has no CRS defined (SRID {}), so its coordinates have no known unit and block sizes and \
                  distances cannot be read in metres; {assign}, or pass --assume-metres if the coordinates are \
-                 metres",
+                 metres{or_random}",
                 info.source_srid
             )))
         }

@@ -331,6 +331,36 @@ fn geographic_srid_needs_a_distance_srid_and_postgis_transforms() {
         4326,
         36,
     );
+    // Random folds need no distances, so the refusal of grid blocks offers
+    // them; a model on locations needs distances with any folds, so its
+    // refusal must not (common practice, no source: a hint must work).
+    let grid_message = fails(&scratch.geofold_run(&workdir, &base), 64);
+    assert_contains(
+        &grid_message,
+        &["--distance-srid", "or use --scheme random"],
+    );
+    let knn = [
+        "--table",
+        "{s}.units",
+        "--id",
+        "id",
+        "--target",
+        "target",
+        "--features",
+        "a,b",
+        "--scheme",
+        "random",
+        "--model",
+        "knn",
+        "--neighbours",
+        "3",
+    ];
+    let knn_message = fails(&scratch.geofold_run(&workdir, &knn), 64);
+    assert_contains(&knn_message, &["--distance-srid"]);
+    assert!(
+        !knn_message.contains("--scheme random"),
+        "knn on lon/lat must not be sent to random folds: {knn_message}"
+    );
 }
 
 /// Runs job `job` on `{s}.<table>` and checks its view is a QGIS layer of
