@@ -7,6 +7,7 @@
 
 use crate::common::fixtures::{
     args, create_lattice, create_squares, create_units, grid, utm_lattice, IdType, Lattice,
+    UNITS_COLUMNS,
 };
 use crate::common::gdal::{
     gdal_extent, gdal_layers, gdal_validates, layer, numbers_in, ogrinfo_sql,
@@ -339,22 +340,11 @@ fn geographic_srid_needs_a_distance_srid_and_postgis_transforms() {
         &grid_message,
         &["--distance-srid", "or use --scheme random"],
     );
-    let knn = [
-        "--table",
-        "{s}.units",
-        "--id",
-        "id",
-        "--target",
-        "target",
-        "--features",
-        "a,b",
-        "--scheme",
-        "random",
-        "--model",
-        "knn",
-        "--neighbours",
-        "3",
-    ];
+    let knn = args(&[
+        &["--table", "{s}.units"],
+        UNITS_COLUMNS,
+        &["--scheme", "random", "--model", "knn", "--neighbours", "3"],
+    ]);
     let knn_message = fails(&scratch.geofold_run(&workdir, &knn), 64);
     assert_contains(&knn_message, &["--distance-srid"]);
     assert!(
