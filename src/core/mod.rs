@@ -2,7 +2,7 @@
 //!
 //! Nothing here touches a database, a file or async code: data in, values out.
 
-pub mod cells;
+pub mod buckets;
 pub mod diagnostics;
 pub mod folds;
 pub mod geometry;

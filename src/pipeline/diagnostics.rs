@@ -86,7 +86,7 @@ pub(super) fn late_figures(
             "held-out residual Moran's I"
         );
         let clock = std::time::Instant::now();
-        let cells = Cells::new(&data.points);
+        let cells = Buckets::new(&data.points);
         for (outcome, cell) in outcomes.iter().zip(late) {
             let mut summaries = outcome
                 .repetitions

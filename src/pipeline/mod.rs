@@ -46,7 +46,7 @@ use crate::adapters::ColumnSpec;
 use crate::adapters::{
     default_job, CrsKind, Locations, ResultStore, Source, SourceInfo, StoredInspection,
 };
-use crate::core::cells::Cells;
+use crate::core::buckets::Buckets;
 use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
 use crate::core::diagnostics::held_out::{HeldOutMoran, HeldOutWeights};
 use crate::core::folds::random::Random;

@@ -9,7 +9,7 @@
 //! excluded from it).
 //!
 //! # Scale
-//! Repetition 1 only; nearest points through [`Cells`]. Per fold, up to [`PER_FOLD_UNITS`] test units, and over
+//! Repetition 1 only; nearest points through [`Buckets`]. Per fold, up to [`PER_FOLD_UNITS`] test units, and over
 //! all folds up to [`POOLED_UNITS`] units, drawn without replacement from
 //! stream [`SAMPLE_STREAM`] of the run seed; the stored row says how many
 //! units the sample came from. With more than [`MAX_FOLD_ROWS`] folds
@@ -24,7 +24,7 @@
 use serde::Serialize;
 
 use super::draws::IndexStream;
-use crate::core::cells::Cells;
+use crate::core::buckets::Buckets;
 use crate::core::folds::FoldSet;
 use crate::core::parallel::parallel_map;
 
@@ -122,7 +122,7 @@ fn sample(units: &[u32], limit: usize, stream: &mut IndexStream) -> Vec<u32> {
 pub fn fold_distances(
     set: &FoldSet,
     points: &[[f64; 2]],
-    cells: &Cells,
+    cells: &Buckets,
     seed: u64,
 ) -> Vec<DistanceSummary> {
     let members = set.test_units();
@@ -182,7 +182,7 @@ pub fn fold_distances(
 
 /// The CV distance of each listed unit (NaN when its fold has no training
 /// unit), on the machine's cores.
-fn cv_distances(set: &FoldSet, points: &[[f64; 2]], cells: &Cells, units: &[u32]) -> Vec<f64> {
+fn cv_distances(set: &FoldSet, points: &[[f64; 2]], cells: &Buckets, units: &[u32]) -> Vec<f64> {
     const CHUNK: usize = 1024;
     parallel_map(units.len().div_ceil(CHUNK), |chunk| {
         units[chunk * CHUNK..((chunk + 1) * CHUNK).min(units.len())]
@@ -229,7 +229,7 @@ mod tests {
         let points: Vec<[f64; 2]> = (0..20).map(|i| [i as f64, 0.0]).collect();
         let fold_of: Vec<u32> = (0..20).map(|i| u32::from(i >= 10)).collect();
         let set = FoldSet::plain(2, fold_of);
-        let cells = Cells::new(&points);
+        let cells = Buckets::new(&points);
         let rows = fold_distances(&set, &points, &cells, 1);
         assert_eq!(rows.len(), 3);
         assert_eq!(rows[0].fold, None);
@@ -246,7 +246,7 @@ mod tests {
         let points: Vec<[f64; 2]> = (0..30_000).map(|i| [i as f64, 0.0]).collect();
         let fold_of: Vec<u32> = (0..30_000).map(|i| (i % 3) as u32).collect();
         let set = FoldSet::plain(3, fold_of);
-        let cells = Cells::new(&points);
+        let cells = Buckets::new(&points);
         let rows = fold_distances(&set, &points, &cells, 7);
         assert_eq!(rows[0].n, POOLED_UNITS);
         assert_eq!(rows[0].sampled_from, Some(30_000));

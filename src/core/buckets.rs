@@ -11,14 +11,14 @@
 //! 1,000,000-unit grid run took 0.98 s through the R*-tree and about 0.05 s
 //! with these buckets (`geofold -v run`, phase `diagnostics`).
 //!
-//! Cells are squares of side `s` with about two points per cell on average
+//! Buckets are squares of side `s` with about two points per cell on average
 //! (`s = sqrt(2 · area / n)`), at most four cells per point. A point in a
 //! cell of Chebyshev ring `r` around the query's cell is at least
 //! `(r − 1) · s` away, so after ring `r` the search stops once the best
 //! distance is at most `r · s`.
 
 /// Points bucketed by grid cell.
-pub struct Cells {
+pub struct Buckets {
     origin: [f64; 2],
     side: f64,
     nx: usize,
@@ -28,9 +28,9 @@ pub struct Cells {
     order: Vec<u32>,
 }
 
-impl Cells {
+impl Buckets {
     /// Buckets `points` (finite coordinates).
-    pub fn new(points: &[[f64; 2]]) -> Cells {
+    pub fn new(points: &[[f64; 2]]) -> Buckets {
         let n = points.len().max(1);
         let (mut min, mut max) = ([f64::INFINITY; 2], [f64::NEG_INFINITY; 2]);
         for p in points {
@@ -54,7 +54,7 @@ impl Cells {
             side *= 1.5;
         }
         let (nx, ny) = (cells_along(width, side), cells_along(height, side));
-        let mut cells = Cells {
+        let mut cells = Buckets {
             origin: min,
             side,
             nx,
@@ -168,7 +168,7 @@ mod tests {
                 points.push([centre[0] + next() * 30.0, centre[1] + next() * 30.0]);
             }
         }
-        let cells = Cells::new(&points);
+        let cells = Buckets::new(&points);
         for q in 0..300 {
             let at = [next() * 1100.0 - 50.0, next() * 500.0 - 50.0];
             let modulus = (q % 7 + 2) as u32;
@@ -185,19 +185,19 @@ mod tests {
     #[test]
     fn degenerate_layouts_work() {
         let same = vec![[5.0, 5.0]; 10];
-        let cells = Cells::new(&same);
+        let cells = Buckets::new(&same);
         assert_eq!(
             cells.nearest_distance(&same, [8.0, 9.0], |j| j == 3),
             Some(5.0)
         );
         let line: Vec<[f64; 2]> = (0..100).map(|i| [i as f64, 0.0]).collect();
-        let cells = Cells::new(&line);
+        let cells = Buckets::new(&line);
         assert_eq!(
             cells.nearest_distance(&line, [10.2, 0.0], |j| j >= 50),
             Some(39.8)
         );
         assert_eq!(
-            Cells::new(&[]).nearest_distance(&[], [0.0, 0.0], |_| true),
+            Buckets::new(&[]).nearest_distance(&[], [0.0, 0.0], |_| true),
             None
         );
     }
