@@ -3,30 +3,45 @@
 
 use super::*;
 
-/// Moran's I of each run's held-out residuals, with the same weights for
-/// every run of the invocation, or why it could not be computed (constant or
-/// missing residuals).
+/// The weights of the held-out Moran's I, the same for every run of the
+/// invocation, or why they could not be built.
+fn held_out_weights(
+    data: &Dataset,
+    rule: &crate::spec::WeightsRule,
+    seed: u64,
+) -> Result<HeldOutWeights, String> {
+    rule.for_points()
+        .map_err(|e| e.to_string())
+        .and_then(|point_rule| {
+            HeldOutWeights::new(&data.points, point_rule, &rule.name(), seed)
+                .map_err(|e| e.to_string())
+        })
+}
+
+/// Moran's I of one run's held-out residuals, or why it could not be
+/// computed (no weights, constant or missing residuals).
+fn held_out_moran(
+    weights: &Result<HeldOutWeights, String>,
+    outcome: &RunOutcome,
+    data: &Dataset,
+) -> Result<HeldOutMoran, String> {
+    weights.as_ref().map_err(Clone::clone).and_then(|w| {
+        w.moran(&outcome.held_out_residuals(&data.target))
+            .map_err(|e| e.to_string())
+    })
+}
+
+/// Moran's I of each run's held-out residuals (see [`held_out_moran`]).
 pub(super) fn held_out_morans(
     outcomes: &[RunOutcome],
     data: &Dataset,
     rule: &crate::spec::WeightsRule,
     seed: u64,
 ) -> Vec<Result<HeldOutMoran, String>> {
-    let weights = rule
-        .for_points()
-        .map_err(|e| e.to_string())
-        .and_then(|point_rule| {
-            HeldOutWeights::new(&data.points, point_rule, &rule.name(), seed)
-                .map_err(|e| e.to_string())
-        });
+    let weights = held_out_weights(data, rule, seed);
     outcomes
         .iter()
-        .map(|outcome| {
-            weights.as_ref().map_err(Clone::clone).and_then(|w| {
-                w.moran(&outcome.held_out_residuals(&data.target))
-                    .map_err(|e| e.to_string())
-            })
-        })
+        .map(|outcome| held_out_moran(&weights, outcome, data))
         .collect()
 }
 
@@ -60,16 +75,24 @@ pub(super) fn late_figures(
     late: &[LateFigures],
 ) -> Vec<Option<String>> {
     let (spec, data) = (context.spec, context.data);
+    // Run by run, so the first run's rows are ready while the next run's
+    // figures are computed.
     let computed = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        let (mut moran_time, mut distance_time) = (Duration::ZERO, Duration::ZERO);
         let clock = std::time::Instant::now();
-        let morans = if spec.assign_only {
-            vec![Err(String::new()); outcomes.len()]
+        let weights = if spec.assign_only {
+            Err(String::new())
         } else {
-            held_out_morans(outcomes, data, &context.checked.residual_weights, spec.seed)
+            held_out_weights(data, &context.checked.residual_weights, spec.seed)
         };
+        moran_time += clock.elapsed();
+        let clock = std::time::Instant::now();
+        let buckets = Buckets::new(&data.points);
+        distance_time += clock.elapsed();
         let mut problems = Vec::with_capacity(outcomes.len());
-        for (result, cell) in morans.into_iter().zip(late) {
-            match result {
+        for (outcome, cell) in outcomes.iter().zip(late) {
+            let clock = std::time::Instant::now();
+            match held_out_moran(&weights, outcome, data) {
                 Ok(moran) => {
                     let _ = cell.held_out_moran.set(vec![moran]);
                     problems.push(None);
@@ -79,19 +102,12 @@ pub(super) fn late_figures(
                     problems.push((!problem.is_empty()).then_some(problem));
                 }
             }
-        }
-        tracing::info!(
-            phase = "diagnostics",
-            elapsed_ms = clock.elapsed().as_millis() as u64,
-            "held-out residual Moran's I"
-        );
-        let clock = std::time::Instant::now();
-        let cells = Buckets::new(&data.points);
-        for (outcome, cell) in outcomes.iter().zip(late) {
+            moran_time += clock.elapsed();
+            let clock = std::time::Instant::now();
             let mut summaries = outcome
                 .repetitions
                 .first()
-                .map(|first| fold_distances(&first.folds, &data.points, &cells, spec.seed))
+                .map(|first| fold_distances(&first.folds, &data.points, &buckets, spec.seed))
                 .unwrap_or_default();
             summaries.extend(
                 context
@@ -99,10 +115,16 @@ pub(super) fn late_figures(
                     .and_then(|p| summarise("prediction", None, p, None)),
             );
             let _ = cell.fold_distances.set(summaries);
+            distance_time += clock.elapsed();
         }
         tracing::info!(
             phase = "diagnostics",
-            elapsed_ms = clock.elapsed().as_millis() as u64,
+            elapsed_ms = moran_time.as_millis() as u64,
+            "held-out residual Moran's I"
+        );
+        tracing::info!(
+            phase = "diagnostics",
+            elapsed_ms = distance_time.as_millis() as u64,
             "test-to-training distances"
         );
         problems
