@@ -86,13 +86,22 @@ pub(super) fn late_figures(
             held_out_weights(data, &context.checked.residual_weights, spec.seed)
         };
         moran_time += clock.elapsed();
-        let clock = std::time::Instant::now();
-        let buckets = Buckets::new(&data.points);
-        distance_time += clock.elapsed();
+        // The weights go once the last Moran's I is computed, and the buckets
+        // come after the first: the two never need to be held at once for
+        // a single run.
+        let mut weights = Some(weights);
+        let mut buckets: Option<Buckets> = None;
         let mut problems = Vec::with_capacity(outcomes.len());
-        for (outcome, cell) in outcomes.iter().zip(late) {
+        for (index, (outcome, cell)) in outcomes.iter().zip(late).enumerate() {
             let clock = std::time::Instant::now();
-            match held_out_moran(&weights, outcome, data) {
+            let moran = match &weights {
+                Some(weights) => held_out_moran(weights, outcome, data),
+                None => Err(String::new()),
+            };
+            if index + 1 == outcomes.len() {
+                weights = None;
+            }
+            match moran {
                 Ok(moran) => {
                     let _ = cell.held_out_moran.set(vec![moran]);
                     problems.push(None);
@@ -104,10 +113,11 @@ pub(super) fn late_figures(
             }
             moran_time += clock.elapsed();
             let clock = std::time::Instant::now();
+            let buckets = buckets.get_or_insert_with(|| Buckets::new(&data.points));
             let mut summaries = outcome
                 .repetitions
                 .first()
-                .map(|first| fold_distances(&first.folds, &data.points, &buckets, spec.seed))
+                .map(|first| fold_distances(&first.folds, &data.points, buckets, spec.seed))
                 .unwrap_or_default();
             summaries.extend(
                 context
