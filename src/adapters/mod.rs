@@ -555,6 +555,54 @@ pub fn resolve_columns(
     }
 }
 
+/// The source columns a run names, each as the table spells it.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct NamedColumns {
+    /// The id column.
+    pub id: String,
+    /// The geometry column.
+    pub geom: String,
+    /// The target column.
+    pub target: String,
+    /// The feature columns, in the order given.
+    pub features: Vec<String>,
+    /// The group column, if one was named.
+    pub group: Option<String>,
+    /// The exposure column, if one was named.
+    pub exposure: Option<String>,
+}
+
+/// [`resolve_columns`] for every column of `columns`, with the id and
+/// geometry columns already chosen (`id`, `geom`).
+///
+/// # Errors
+/// As [`resolve_columns`].
+pub fn resolve_named_columns(
+    id: &str,
+    geom: &str,
+    columns: &ColumnSpec,
+    existing: &[String],
+    rule: NameMatch,
+    where_: &str,
+) -> Result<NamedColumns, Error> {
+    let wanted: Vec<&str> = [id, geom, columns.target.as_str()]
+        .into_iter()
+        .chain(columns.features.iter().map(String::as_str))
+        .chain(columns.group.as_deref())
+        .chain(columns.exposure.as_deref())
+        .collect();
+    let mut resolved = resolve_columns(&wanted, existing, rule, where_)?.into_iter();
+    let mut next = || resolved.next().unwrap_or_default();
+    Ok(NamedColumns {
+        id: next(),
+        geom: next(),
+        target: next(),
+        features: columns.features.iter().map(|_| next()).collect(),
+        group: columns.group.as_ref().map(|_| next()),
+        exposure: columns.exposure.as_ref().map(|_| next()),
+    })
+}
+
 /// ` (did you mean a, b?)` with up to three existing names close to `name`
 /// (Jaro–Winkler similarity 0.8 or more, or one of at least 3 letters
 /// contained in the other, ignoring case), or nothing.

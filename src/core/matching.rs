@@ -32,7 +32,7 @@ use serde::Serialize;
 
 use crate::core::folds::FoldSet;
 use crate::core::neighbours::NeighbourIndex;
-use crate::core::parallel::parallel_map;
+use crate::core::parallel::parallel_chunked;
 
 /// Units skipped before a unit's CV distance is looked up fold by fold.
 pub const SKIP_BUDGET: usize = 64;
@@ -254,15 +254,7 @@ pub fn cv_distances_of(
 
 /// `f(i)` for `i` in `0..n`, in order, computed on the machine's cores.
 fn chunked(n: usize, f: impl Fn(usize) -> f64 + Sync) -> Vec<f64> {
-    let chunks = n.div_ceil(CHUNK);
-    parallel_map(chunks, |c| {
-        (c * CHUNK..((c + 1) * CHUNK).min(n))
-            .map(&f)
-            .collect::<Vec<f64>>()
-    })
-    .into_iter()
-    .flatten()
-    .collect()
+    parallel_chunked(n, CHUNK, f)
 }
 
 #[cfg(test)]

@@ -47,6 +47,24 @@ pub fn parallel_map<T: Send>(count: usize, work: impl Fn(usize) -> T + Sync) -> 
         .collect()
 }
 
+/// `work(i)` for `i` in `0..n`, in order, handed out in chunks of `chunk`
+/// items (cheap items, where one at a time would cost more than the work).
+pub fn parallel_chunked<T: Send>(
+    n: usize,
+    chunk: usize,
+    work: impl Fn(usize) -> T + Sync,
+) -> Vec<T> {
+    let chunk = chunk.max(1);
+    parallel_map(n.div_ceil(chunk), |c| {
+        (c * chunk..((c + 1) * chunk).min(n))
+            .map(&work)
+            .collect::<Vec<T>>()
+    })
+    .into_iter()
+    .flatten()
+    .collect()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -56,5 +74,7 @@ mod tests {
         let squares = parallel_map(1000, |i| i * i);
         assert_eq!(squares, (0..1000).map(|i| i * i).collect::<Vec<_>>());
         assert!(parallel_map(0, |i| i).is_empty());
+        let cubes = parallel_chunked(1001, 64, |i| i * i * i);
+        assert_eq!(cubes, (0..1001).map(|i| i * i * i).collect::<Vec<_>>());
     }
 }

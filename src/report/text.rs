@@ -142,43 +142,21 @@ impl Summary {
             }
             let _ = writeln!(out, "{line}");
         }
-        let pooled: Vec<String> = names
-            .iter()
-            .map(|name| {
-                format!(
-                    "{} {}",
-                    label(name),
-                    run.pooled
-                        .get(name)
-                        .map(number)
-                        .unwrap_or_else(|| "-".into())
-                )
-            })
-            .collect();
         let _ = writeln!(
             out,
             "  pooled over {} held-out predictions: {}",
             run.pooled.n,
-            pooled.join("  ")
+            score_line(names.iter(), &run.pooled)
         );
-        let baseline: Vec<String> = names
-            .iter()
-            .filter(|name| score_def(name).is_some_and(|d| d.better != Better::Zero))
-            .map(|name| {
-                format!(
-                    "{} {}",
-                    label(name),
-                    run.baseline
-                        .get(name)
-                        .map(number)
-                        .unwrap_or_else(|| "-".into())
-                )
-            })
-            .collect();
         let _ = writeln!(
             out,
             "  training-mean baseline on the same folds: {}",
-            baseline.join("  ")
+            score_line(
+                names
+                    .iter()
+                    .filter(|name| score_def(name).is_some_and(|d| d.better != Better::Zero)),
+                &run.baseline
+            )
         );
         if names.contains(&"accuracy") {
             let _ = writeln!(
@@ -312,6 +290,21 @@ pub(super) fn optional_spread_map<S: serde::Serializer>(
 }
 
 /// A score's name as printed.
+/// `RMSE 1.2335  MAE 0.9836 …`: each named score of `scores` with its label
+/// (`-` where the score is missing).
+fn score_line<'a>(names: impl Iterator<Item = &'a &'a str>, scores: &Scores) -> String {
+    names
+        .map(|name| {
+            format!(
+                "{} {}",
+                label(name),
+                scores.get(name).map(number).unwrap_or_else(|| "-".into())
+            )
+        })
+        .collect::<Vec<_>>()
+        .join("  ")
+}
+
 pub(super) fn label(name: &str) -> String {
     match name {
         "r2" => "R²".into(),

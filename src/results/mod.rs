@@ -519,6 +519,16 @@ pub const DIAGNOSTICS: TableDef = TableDef {
     ],
 };
 
+/// The owner column of the semivariogram, fit and correlogram rows.
+const ANALYSIS_ID: Column = col(
+    "analysis_id",
+    RunId,
+    "run_id of a run or inspection_id of an inspection",
+);
+
+/// What the semivariogram, fit and correlogram rows describe.
+const SUBJECT: Column = col("subject", Text, "residuals or target");
+
 /// The empirical semivariogram of residuals.
 pub const SEMIVARIOGRAM: TableDef = TableDef {
     name: "semivariogram",
@@ -526,8 +536,8 @@ pub const SEMIVARIOGRAM: TableDef = TableDef {
     keying: Keying::Primary(&["analysis_id", "subject", "lag"]),
     belongs_to_run: false,
     columns: &[
-        col("analysis_id", RunId, "run_id of a run or inspection_id of an inspection"),
-        col("subject", Text, "residuals or target"),
+        ANALYSIS_ID,
+        SUBJECT,
         col("lag", Int, "lag number, from 1"),
         col("lower", Float, "lower edge of the lag (excluded), CRS units"),
         col("upper", Float, "upper edge of the lag (included), CRS units"),
@@ -545,8 +555,8 @@ pub const VARIOGRAM_FITS: TableDef = TableDef {
     keying: Keying::Primary(&["analysis_id", "subject", "model"]),
     belongs_to_run: false,
     columns: &[
-        col("analysis_id", RunId, "run_id of a run or inspection_id of an inspection"),
-        col("subject", Text, "residuals or target"),
+        ANALYSIS_ID,
+        SUBJECT,
         col("model", Text, "spherical or exponential"),
         col("nugget", Float, "nugget"),
         col("partial_sill", Float, "partial sill"),
@@ -564,12 +574,8 @@ pub const CORRELOGRAM: TableDef = TableDef {
     keying: Keying::Primary(&["analysis_id", "subject", "class"]),
     belongs_to_run: false,
     columns: &[
-        col(
-            "analysis_id",
-            RunId,
-            "run_id of a run or inspection_id of an inspection",
-        ),
-        col("subject", Text, "residuals or target"),
+        ANALYSIS_ID,
+        SUBJECT,
         col("class", Int, "distance class, from 1"),
         col("lower", Float, "lower edge (excluded), CRS units"),
         col("upper", Float, "upper edge (included), CRS units"),

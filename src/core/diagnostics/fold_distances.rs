@@ -26,7 +26,7 @@ use serde::Serialize;
 use super::draws::IndexStream;
 use crate::core::buckets::Buckets;
 use crate::core::folds::FoldSet;
-use crate::core::parallel::parallel_map;
+use crate::core::parallel::parallel_chunked;
 
 /// Test units measured per fold at most.
 pub const PER_FOLD_UNITS: usize = 2_000;
@@ -183,24 +183,15 @@ pub fn fold_distances(
 /// The CV distance of each listed unit (NaN when its fold has no training
 /// unit), on the machine's cores.
 fn cv_distances(set: &FoldSet, points: &[[f64; 2]], cells: &Buckets, units: &[u32]) -> Vec<f64> {
-    const CHUNK: usize = 1024;
-    parallel_map(units.len().div_ceil(CHUNK), |chunk| {
-        units[chunk * CHUNK..((chunk + 1) * CHUNK).min(units.len())]
-            .iter()
-            .map(|&unit| {
-                let fold = set.fold_of[unit as usize];
-                let excluded = set.excluded_from(fold);
-                let keep =
-                    |j: u32| set.fold_of[j as usize] != fold && excluded.binary_search(&j).is_err();
-                cells
-                    .nearest_distance(points, points[unit as usize], keep)
-                    .unwrap_or(f64::NAN)
-            })
-            .collect::<Vec<f64>>()
+    parallel_chunked(units.len(), 1024, |position| {
+        let unit = units[position];
+        let fold = set.fold_of[unit as usize];
+        let excluded = set.excluded_from(fold);
+        let keep = |j: u32| set.fold_of[j as usize] != fold && excluded.binary_search(&j).is_err();
+        cells
+            .nearest_distance(points, points[unit as usize], keep)
+            .unwrap_or(f64::NAN)
     })
-    .into_iter()
-    .flatten()
-    .collect()
 }
 
 #[cfg(test)]

@@ -182,7 +182,7 @@ impl FoldScheme for Group {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::core::neighbours::NeighbourIndex;
+    use crate::core::testing::Points;
     use crate::core::units::Groups;
     use geo_types::{polygon, Geometry};
 
@@ -211,14 +211,11 @@ mod tests {
             names: vec!["a".into(), "b".into(), "c".into(), "d".into()],
             codes: codes.clone(),
         };
-        let index = NeighbourIndex::new(&points);
+        let points = Points::new(points);
         let input = SchemeInput {
-            points: &points,
-            index: &index,
             groups: Some(&groups),
-            prediction_points: None,
             geometries: Some(&shapes),
-            exclusion_radius: None,
+            ..points.input()
         };
         let set = Group::new(2)
             .unwrap()

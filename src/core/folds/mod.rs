@@ -407,16 +407,9 @@ mod tests {
         // Six points on a line 1 apart; folds 0,0,1,1,2,2. With radius 1 fold 0
         // (points 0 and 1) excludes point 2; fold 1 excludes points 1 and 4;
         // fold 2 excludes point 3. Hand computation.
-        let points: Vec<[f64; 2]> = (0..6).map(|i| [f64::from(i), 0.0]).collect();
-        let index = NeighbourIndex::new(&points);
-        let input = SchemeInput {
-            points: &points,
-            index: &index,
-            groups: None,
-            prediction_points: None,
-            geometries: None,
-            exclusion_radius: None,
-        };
+        let points =
+            crate::core::testing::Points::new((0..6).map(|i| [f64::from(i), 0.0]).collect());
+        let input = points.input();
         let mut set = FoldSet::plain(3, vec![0, 0, 1, 1, 2, 2]);
         exclude_within(&mut set, &input, 1.0);
         assert_eq!(set.excluded, vec![vec![2], vec![1, 4], vec![3]]);

@@ -302,6 +302,20 @@ impl Triangle {
     }
 }
 
+/// A least-squares fit of `p` coefficients (intercept and features) on `have`
+/// units, fewer than `p`.
+pub(crate) fn too_few_units(have: usize, p: usize, features: &[String]) -> FitError {
+    FitError::TooFewUnits {
+        have,
+        need: p,
+        what: format!(
+            "least squares with an intercept and {} features ({})",
+            p - 1,
+            features.join(", ")
+        ),
+    }
+}
+
 /// The names of the terms: the intercept, then the features.
 pub fn term_name(features: &[String], j: usize) -> String {
     if j == 0 {
@@ -329,15 +343,7 @@ pub fn solve(
     let p = width - 1;
     let n = triangle.units;
     if n < p || triangle.r.nrows() < p {
-        return Err(FitError::TooFewUnits {
-            have: n,
-            need: p,
-            what: format!(
-                "least squares with an intercept and {} features ({})",
-                p - 1,
-                features.join(", ")
-            ),
-        });
+        return Err(too_few_units(n, p, features));
     }
     let r = &triangle.r;
     let tolerance = (n.max(p) as f64) * 10.0 * f64::EPSILON;

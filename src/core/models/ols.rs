@@ -169,15 +169,7 @@ fn solve(
     let (n, p) = design.shape();
     let name = |j: usize| linear::term_name(feature_names, j);
     if n < p {
-        return Err(FitError::TooFewUnits {
-            have: n,
-            need: p,
-            what: format!(
-                "least squares with an intercept and {} features ({})",
-                p - 1,
-                feature_names.join(", ")
-            ),
-        });
+        return Err(linear::too_few_units(n, p, feature_names));
     }
     for j in 1..p {
         let column = design.column(j);

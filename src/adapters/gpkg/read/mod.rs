@@ -32,7 +32,8 @@ use rusqlite::{Connection, OptionalExtension, Row};
 use super::schema::Srs;
 use super::{blob, check_geopackage, file_error, open_file, quote, sqlite_error};
 use crate::adapters::{
-    resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
+    resolve_named_columns, suggest, ColumnSpec, CrsKind, NameMatch, NamedColumns, Source,
+    SourceInfo,
 };
 use crate::core::diagnostics::contiguity::Contiguity;
 use crate::core::units::{Dataset, Extras, IdKind, RawGeometry, UnitCollector, UnitId};
@@ -161,32 +162,21 @@ impl GpkgSource {
         };
         let geom_column = columns.geom.clone().unwrap_or(registered_geom.clone());
         let names: Vec<String> = table_columns.iter().map(|c| c.name.clone()).collect();
-        let wanted: Vec<&str> = [
-            id_column.as_str(),
-            geom_column.as_str(),
-            columns.target.as_str(),
-        ]
-        .into_iter()
-        .chain(columns.features.iter().map(String::as_str))
-        .chain(columns.group.as_deref())
-        .chain(columns.exposure.as_deref())
-        .collect();
-        let resolved = resolve_columns(
-            &wanted,
+        let NamedColumns {
+            id: id_column,
+            geom: geom_column,
+            target: target_column,
+            features: feature_columns,
+            group: group_column,
+            exposure: exposure_column,
+        } = resolve_named_columns(
+            &id_column,
+            &geom_column,
+            columns,
             &names,
             NameMatch::Sqlite,
             &format!("layer {layer} of {}", path.display()),
         )?;
-        let (id_column, geom_column, target_column) = (
-            resolved[0].clone(),
-            resolved[1].clone(),
-            resolved[2].clone(),
-        );
-        let m = columns.features.len();
-        let feature_columns = resolved[3..3 + m].to_vec();
-        let mut extra = resolved[3 + m..].iter().cloned();
-        let group_column = columns.group.as_ref().and_then(|_| extra.next());
-        let exposure_column = columns.exposure.as_ref().and_then(|_| extra.next());
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);
         let location = |column: &str| Location {
             table: display.clone(),

@@ -13,7 +13,8 @@ use geozero::ToGeo;
 use super::copy::{read_float8, read_int8, CopyDecoder};
 use super::{database_error, quote_ident, split_qualified, Session};
 use crate::adapters::{
-    index_pairs, resolve_columns, suggest, ColumnSpec, CrsKind, NameMatch, Source, SourceInfo,
+    index_pairs, resolve_named_columns, suggest, ColumnSpec, CrsKind, NameMatch, NamedColumns,
+    Source, SourceInfo,
 };
 use crate::core::diagnostics::contiguity::Contiguity;
 use crate::core::units::Dataset;
@@ -141,27 +142,21 @@ impl PostgisSource {
                 }
             }
         };
-        let wanted: Vec<&str> = [
-            id_column.as_str(),
-            geom_column.as_str(),
-            columns.target.as_str(),
-        ]
-        .into_iter()
-        .chain(columns.features.iter().map(String::as_str))
-        .chain(columns.group.as_deref())
-        .chain(columns.exposure.as_deref())
-        .collect();
-        let resolved = resolve_columns(&wanted, &names, NameMatch::Postgres, &where_)?;
-        let (id_column, geom_column, target_column) = (
-            resolved[0].clone(),
-            resolved[1].clone(),
-            resolved[2].clone(),
-        );
-        let m = columns.features.len();
-        let feature_columns = resolved[3..3 + m].to_vec();
-        let mut extra = resolved[3 + m..].iter().cloned();
-        let group_column = columns.group.as_ref().and_then(|_| extra.next());
-        let exposure_column = columns.exposure.as_ref().and_then(|_| extra.next());
+        let NamedColumns {
+            id: id_column,
+            geom: geom_column,
+            target: target_column,
+            features: feature_columns,
+            group: group_column,
+            exposure: exposure_column,
+        } = resolve_named_columns(
+            &id_column,
+            &geom_column,
+            columns,
+            &names,
+            NameMatch::Postgres,
+            &where_,
+        )?;
         let find = |name: &str| table_columns.iter().find(|c| c.name == name);
         let mut problems = Vec::new();
         let location = |column: &str| Location {

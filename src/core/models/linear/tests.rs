@@ -8,26 +8,13 @@ use nalgebra::{DMatrix, DVector};
 use super::*;
 use crate::core::folds::{exclude_within, FoldRng, FoldScheme};
 use crate::core::models::ols::fit_ols;
-use crate::core::units::{GeometryKinds, IdKind, Skipped, UnitId};
+use crate::core::testing::table_dataset;
 
 /// A dataset from feature rows, targets and points.
 fn dataset(features: &[Vec<f64>], target: &[f64], points: &[[f64; 2]]) -> Dataset {
-    let m = features[0].len();
-    Dataset {
-        ids: (1..=target.len() as i64).map(UnitId::Int).collect(),
-        points: points.to_vec(),
-        target: target.to_vec(),
-        features: features.iter().flatten().copied().collect(),
-        feature_names: (1..=m).map(|j| format!("x{j}")).collect(),
-        id_kind: IdKind::Integer,
-        geometry_kinds: GeometryKinds::default(),
-        rows_read: target.len() as u64,
-        skipped: Skipped::default(),
-        groups: None,
-        exposure: None,
-        categorical: Vec::new(),
-        geometries: None,
-    }
+    let names: Vec<String> = (1..=features[0].len()).map(|j| format!("x{j}")).collect();
+    let names: Vec<&str> = names.iter().map(String::as_str).collect();
+    table_dataset(&names, features, target, points)
 }
 
 /// A reproducible scattered dataset: y = 2 + x1 − 0.5 x2 + 0.1 x3 + noise, on
