@@ -58,23 +58,7 @@ fn cut_at(
     let case = Case::new(label, 16);
     let proxy = Proxy::start();
     proxy.arm(point, Action::Cut(down_for));
-    let mut command = case.geofold(&[
-        "run",
-        "--db",
-        &proxy.uri(),
-        "--table",
-        &case.table(),
-        "--target",
-        "yield",
-        "--features",
-        "wetness,slope",
-        "--block-size",
-        "4000",
-        "--results-schema",
-        &case.results,
-        "--job",
-        "plots",
-    ]);
+    let mut command = case.run_command(&proxy.uri(), "plots", &["--block-size", "4000"]);
     command.env("GEOFOLD_CONNECT_RETRY", retry);
     let output = common::run(command);
     assert!(proxy.fired(), "the proxy saw the {point:?} point");
@@ -111,24 +95,8 @@ fn check_cut(case: &Case, output: &std::process::Output, recorded: bool) {
 /// rows; the runs table then holds the cut run (failed, when it had begun)
 /// and the new one.
 fn check_next_run(case: &Case, recorded: bool) {
-    let next = case.run(&[
-        "run",
-        "--db",
-        &db_uri(),
-        "--table",
-        &case.table(),
-        "--target",
-        "yield",
-        "--features",
-        "wetness,slope",
-        "--block-size",
-        "4000",
-        "--results-schema",
-        &case.results,
-        "--job",
-        "plots",
-        "--json",
-    ]);
+    let next =
+        common::run(case.run_command(&db_uri(), "plots", &["--block-size", "4000", "--json"]));
     assert_eq!(code(&next), 0);
     let run_id = json(&next)["runs"][0]["run_id"]
         .as_str()
@@ -202,24 +170,7 @@ fn a_run_whose_server_stays_away_is_marked_failed_by_the_next_run() {
 
 /// `geofold run` of the lattice as job `job` (a spawned child).
 fn spawn_run(case: &Case, db: &str, job: &str, extra: &[&str]) -> std::process::Child {
-    let mut command = case.geofold(&[
-        "run",
-        "--db",
-        db,
-        "--table",
-        &case.table(),
-        "--target",
-        "yield",
-        "--features",
-        "wetness,slope",
-        "--block-size",
-        "4000",
-        "--results-schema",
-        &case.results,
-        "--job",
-        job,
-    ]);
-    command.args(extra);
+    let mut command = case.run_command(db, job, &[&["--block-size", "4000"], extra].concat());
     command
         .stdout(std::process::Stdio::piped())
         .stderr(std::process::Stdio::piped());
@@ -239,23 +190,11 @@ fn two_runs_of_one_job_started_together_one_runs_and_one_is_busy() {
     let case = Case::new("together", 16);
     // Prepare the results schema first, so both runs below only race for the job.
     assert_eq!(
-        code(&case.run(&[
-            "run",
-            "--db",
+        code(&common::run(case.run_command(
             &db_uri(),
-            "--table",
-            &case.table(),
-            "--target",
-            "yield",
-            "--features",
-            "wetness,slope",
-            "--block-size",
-            "4000",
-            "--results-schema",
-            &case.results,
-            "--job",
-            "other"
-        ])),
+            "other",
+            &["--block-size", "4000"]
+        ))),
         0
     );
     let proxy = Proxy::start();
@@ -268,24 +207,8 @@ fn two_runs_of_one_job_started_together_one_runs_and_one_is_busy() {
 
     // Run B of the same job exits at once: busy, nothing done.
     let started = Instant::now();
-    let busy = case.run(&[
-        "run",
-        "--db",
-        &db_uri(),
-        "--table",
-        &case.table(),
-        "--target",
-        "yield",
-        "--features",
-        "wetness,slope",
-        "--block-size",
-        "4000",
-        "--results-schema",
-        &case.results,
-        "--job",
-        "plots",
-        "--json",
-    ]);
+    let busy =
+        common::run(case.run_command(&db_uri(), "plots", &["--block-size", "4000", "--json"]));
     assert_eq!(code(&busy), 2);
     assert!(
         started.elapsed() < Duration::from_secs(10),
@@ -300,23 +223,7 @@ fn two_runs_of_one_job_started_together_one_runs_and_one_is_busy() {
     );
 
     // A different job runs in parallel with A.
-    let other = case.run(&[
-        "run",
-        "--db",
-        &db_uri(),
-        "--table",
-        &case.table(),
-        "--target",
-        "yield",
-        "--features",
-        "wetness,slope",
-        "--scheme",
-        "random",
-        "--results-schema",
-        &case.results,
-        "--job",
-        "other",
-    ]);
+    let other = common::run(case.run_command(&db_uri(), "other", &["--scheme", "random"]));
     assert_eq!(code(&other), 0, "another job is not blocked");
 
     // Run C of the same job waits (--wait) for A, then runs.

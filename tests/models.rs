@@ -7,6 +7,7 @@
 //! (`model_helpers::create_units`) except the named published data sets.
 //! Bad input is in `tests/models_input.rs`.
 
+mod common;
 mod model_helpers;
 
 use geofold::core::metrics::Family;

@@ -4,6 +4,7 @@
 //! run is recorded; a fold that cannot be fitted leaves its run `failed` with
 //! no result rows). The units are invented (`model_helpers::create_units`).
 
+mod common;
 mod model_helpers;
 
 use model_helpers::*;

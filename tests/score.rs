@@ -8,6 +8,7 @@
 //! problem listed and nothing written. The units are invented
 //! (`model_helpers::create_units`).
 
+mod common;
 mod model_helpers;
 
 use model_helpers::*;

@@ -6,79 +6,16 @@
 //! so every case runs on both.
 #![allow(dead_code)]
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output, Stdio};
-use std::sync::atomic::{AtomicUsize, Ordering};
+use std::path::PathBuf;
+use std::process::{Command, Output};
 
-/// The test database URI (the suite fails, rather than skips, without it).
-pub fn db_uri() -> String {
-    std::env::var("GEOFOLD_TEST_DB").expect(
-        "GEOFOLD_TEST_DB is not set: start PostGIS with scripts/pg-throwaway.sh or run bash scripts/test.sh",
-    )
-}
-
-static COUNTER: AtomicUsize = AtomicUsize::new(0);
-
-/// A name unique to this process and call.
-pub fn unique_name(label: &str) -> String {
-    format!(
-        "m_{}_{}_{label}",
-        std::process::id(),
-        COUNTER.fetch_add(1, Ordering::SeqCst)
-    )
-}
-
-/// Runs SQL with psql; returns unaligned, tuples-only output (`|` between fields).
-pub fn psql(sql: &str) -> String {
-    let output = Command::new("psql")
-        .arg(db_uri())
-        .args(["-X", "-q", "-A", "-t", "-v", "ON_ERROR_STOP=1", "-c", sql])
-        .output()
-        .expect("psql runs");
-    assert!(
-        output.status.success(),
-        "psql failed on {sql}:\n{}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-    String::from_utf8_lossy(&output.stdout)
-        .trim_end()
-        .to_string()
-}
+pub use crate::common::pg::{db_uri, psql, unique_name};
 
 /// Runs the reference script `tests/python/<script>` with `args`, feeding
-/// `input`; returns stdout. `GEOFOLD_PYTHON` is the project's own Python
-/// (`bash scripts/python-env.sh`), which has numpy, scipy, statsmodels and
-/// scikit-learn.
+/// `input`; returns stdout (the project's own Python, `GEOFOLD_PYTHON`, which
+/// has numpy, scipy, statsmodels and scikit-learn).
 pub fn python(script: &str, args: &[&str], input: &str) -> String {
-    use std::io::Write;
-    let python = std::env::var("GEOFOLD_PYTHON")
-        .ok()
-        .filter(|p| !p.is_empty())
-        .expect("GEOFOLD_PYTHON is not set: use the python printed by bash scripts/python-env.sh");
-    let path = Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("tests/python")
-        .join(script);
-    let mut child = Command::new(python)
-        .arg(&path)
-        .args(args)
-        .stdin(Stdio::piped())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("the reference python runs");
-    child
-        .stdin
-        .take()
-        .expect("stdin")
-        .write_all(input.as_bytes())
-        .expect("write to the reference script");
-    let output = child.wait_with_output().expect("the reference script ends");
-    assert!(
-        output.status.success(),
-        "{script} failed:\n{}",
-        String::from_utf8_lossy(&output.stderr)
-    );
-    String::from_utf8(output.stdout).expect("UTF-8")
+    crate::common::python_script(&format!("python/{script}"), args, input)
 }
 
 /// A scratch directory, a source schema in PostGIS and its GeoPackage copy.

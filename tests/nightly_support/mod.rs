@@ -62,6 +62,29 @@ impl Case {
         command
     }
 
+    /// `geofold run` of the lattice (target yield, features wetness and slope)
+    /// through `db` into the case's results schema as job `job`, with `extra`.
+    pub fn run_command(&self, db: &str, job: &str, extra: &[&str]) -> Command {
+        let table = self.table();
+        let mut args = vec![
+            "run",
+            "--db",
+            db,
+            "--table",
+            &table,
+            "--target",
+            "yield",
+            "--features",
+            "wetness,slope",
+            "--results-schema",
+            &self.results,
+            "--job",
+            job,
+        ];
+        args.extend_from_slice(extra);
+        self.geofold(&args)
+    }
+
     /// Runs geofold and returns its output (stderr printed for a failing test).
     pub fn run(&self, args: &[&str]) -> Output {
         crate::common::run(self.geofold(args))
@@ -183,26 +206,7 @@ pub fn job_report<'a>(document: &'a serde_json::Value, name: &str) -> &'a serde_
 /// `geofold run --json` of the lattice as job `plots`, straight to the test
 /// server, with extra options.
 pub fn run_plots(case: &Case, extra: &[&str]) -> Output {
-    let db = db_uri();
-    let table = case.table();
-    let mut args = vec![
-        "run",
-        "--db",
-        &db,
-        "--table",
-        &table,
-        "--target",
-        "yield",
-        "--features",
-        "wetness,slope",
-        "--results-schema",
-        &case.results,
-        "--job",
-        "plots",
-        "--json",
-    ];
-    args.extend_from_slice(extra);
-    case.run(&args)
+    crate::common::run(case.run_command(&db_uri(), "plots", &[&["--json"], extra].concat()))
 }
 
 /// stdout as text.
