@@ -29,11 +29,10 @@ use std::path::PathBuf;
 use uuid::Uuid;
 
 use crate::adapters::gpkg::scoring::read_predictions_file;
-use crate::adapters::gpkg::GpkgStore;
-use crate::adapters::postgis::store::PostgisStore;
-use crate::adapters::postgis::Session;
-use crate::adapters::{AssignedRun, ColumnSpec, PredictionRow, ResultStore};
+use crate::adapters::history::Store;
+use crate::adapters::{AssignedRun, ColumnSpec, PredictionRow};
 use crate::core::folds::{build_scheme, FoldSet, Region};
+use crate::core::matching::Matching;
 use crate::core::metrics::Family;
 use crate::core::models::design::UnseenPolicy;
 use crate::core::options::Options;
@@ -41,6 +40,7 @@ use crate::core::units::Dataset;
 use crate::core::validate::{score_predictions, Predicted};
 use crate::error::{Error, Location};
 use crate::pipeline::{attach_held_out_moran, open_source, read_units};
+use crate::readback::load::nearest_distances;
 use crate::report::Summary;
 use crate::results::rows::{FinishedRun, RunRecord, Stage};
 use crate::spec::{Limits, ResultsRef, RunSpec, SourceRef, DEFAULT_RESIDUAL_WEIGHTS};
@@ -82,22 +82,15 @@ pub struct ScoreSpec {
     pub limits: Limits,
 }
 
-fn open_store(spec: &ScoreSpec) -> Result<Box<dyn ResultStore>, Error> {
-    Ok(match &spec.results {
-        ResultsRef::Postgis { db, schema } => {
-            let session = Session::connect(db.as_deref())?;
-            session.limit_waits(spec.limits.lock_timeout(), spec.limits.statement_timeout())?;
-            Box::new(PostgisStore::new(session, schema, db.as_deref()))
+fn open_store(spec: &ScoreSpec) -> Result<Box<dyn Store>, Error> {
+    if let ResultsRef::Gpkg { file } = &spec.results {
+        if !file.exists() {
+            return Err(Error::NotFound {
+                what: format!("results file {}", file.display()),
+            });
         }
-        ResultsRef::Gpkg { file } => {
-            if !file.exists() {
-                return Err(Error::NotFound {
-                    what: format!("results file {}", file.display()),
-                });
-            }
-            Box::new(GpkgStore::open(file, spec.limits.lock_timeout())?)
-        }
-    })
+    }
+    crate::pipeline::open_store(&spec.results, &spec.limits)
 }
 
 /// Scores run `spec.run_id` with the predictions of `spec.predictions`.
@@ -178,6 +171,13 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
         })
         .collect();
     let mut outcome = score_predictions(&data, family, predicted);
+    // The distance match of a run given prediction locations, from the
+    // distances stored when its folds were assigned.
+    let (cv, prediction) = nearest_distances(store.as_mut(), &run.run_id.to_string())?;
+    if !prediction.is_empty() {
+        let cv: Vec<&[f64]> = cv.iter().map(Vec::as_slice).collect();
+        outcome.matching = Some(Matching::new(prediction, &cv));
+    }
     attach_held_out_moran(
         std::slice::from_mut(&mut outcome),
         &data,

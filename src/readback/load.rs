@@ -221,24 +221,53 @@ pub fn load(
 }
 
 /// `nearest_distances` of a run: cv distances of repetition 1 and prediction
-/// distances, each ascending.
+/// distances, each ascending, without the NULLs of folds with no training unit.
 fn distance_rows(store: &mut dyn Store, run: &[String]) -> Result<(Vec<f64>, Vec<f64>), Error> {
-    let (mut cv, mut prediction) = (Vec::new(), Vec::new());
-    store.read_rows(&NEAREST_DISTANCES, "run_id", run, &mut |values| {
-        let row = Row::new(&NEAREST_DISTANCES, &values);
-        match (
-            row.text("kind").as_deref(),
-            row.int("repetition"),
-            row.float("distance"),
-        ) {
-            (Some("cv"), Some(1), Some(d)) => cv.push(d),
-            (Some("prediction"), _, Some(d)) => prediction.push(d),
-            _ => {}
-        }
-        Ok(())
-    })?;
-    cv.sort_by(f64::total_cmp);
-    prediction.sort_by(f64::total_cmp);
+    let (cv, prediction) = nearest_distances(store, &run[0])?;
+    let ascending = |values: Vec<f64>| {
+        let mut values: Vec<f64> = values.into_iter().filter(|d| d.is_finite()).collect();
+        values.sort_by(f64::total_cmp);
+        values
+    };
+    Ok((
+        ascending(cv.into_iter().next().unwrap_or_default()),
+        ascending(prediction),
+    ))
+}
+
+/// `nearest_distances` of run `run`: the cv distances of each repetition
+/// (index 0 is repetition 1) and the prediction distances, in no particular
+/// order; NaN where the stored distance is NULL (a fold with no training
+/// unit). Both empty for a run given no prediction locations.
+///
+/// # Errors
+/// Database and file errors.
+pub fn nearest_distances(
+    store: &mut dyn Store,
+    run: &str,
+) -> Result<(Vec<Vec<f64>>, Vec<f64>), Error> {
+    let (mut cv, mut prediction): (Vec<Vec<f64>>, Vec<f64>) = (Vec::new(), Vec::new());
+    store.read_rows(
+        &NEAREST_DISTANCES,
+        "run_id",
+        &[run.to_string()],
+        &mut |values| {
+            let row = Row::new(&NEAREST_DISTANCES, &values);
+            let distance = row.float("distance").unwrap_or(f64::NAN);
+            match (row.text("kind").as_deref(), row.int("repetition")) {
+                (Some("cv"), Some(repetition)) if repetition >= 1 => {
+                    let slot = (repetition - 1) as usize;
+                    if cv.len() <= slot {
+                        cv.resize_with(slot + 1, Vec::new);
+                    }
+                    cv[slot].push(distance);
+                }
+                (Some("prediction"), _) => prediction.push(distance),
+                _ => {}
+            }
+            Ok(())
+        },
+    )?;
     Ok((cv, prediction))
 }
 

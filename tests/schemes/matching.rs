@@ -5,7 +5,7 @@
 
 use std::collections::BTreeMap;
 
-use crate::common::{code, json, python_script};
+use crate::common::{code, db_uri, json, python_script, stderr};
 use crate::loaders;
 use crate::support::*;
 
@@ -172,6 +172,30 @@ fn columbus_leave_one_out_k_means_and_matching_reproduce_the_references() {
     }
 }
 
+/// Checks a run's stored W (pooled, and its mean and SD over `repeats`
+/// repetitions) against scipy's `wasserstein_distance` of its stored
+/// distances; returns the pooled W.
+fn assert_w_matches_scipy(case: &Case, store: Store, run: &str, repeats: u32) -> f64 {
+    let prediction = distances(case, store, run, "prediction", None);
+    assert_eq!(prediction.len(), 144);
+    let mut all = Vec::new();
+    let mut per = Vec::new();
+    for repetition in 1..=repeats {
+        let cv = distances(case, store, run, "cv", Some(repetition));
+        assert_eq!(cv.len(), UNITS);
+        per.push(scipy_w(&cv, &prediction));
+        all.extend(cv);
+    }
+    let pooled = scipy_w(&all, &prediction);
+    assert!((w_nnd(case, store, run, "pooled") - pooled).abs() <= 1e-12 * pooled);
+    let n = repeats as f64;
+    let mean = per.iter().sum::<f64>() / n;
+    let sd = (per.iter().map(|w| (w - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+    assert!((w_nnd(case, store, run, "repeat_mean") - mean).abs() <= 1e-12 * mean);
+    assert!((w_nnd(case, store, run, "repeat_sd") - sd).abs() <= 1e-9 * mean);
+    pooled
+}
+
 #[test]
 fn w_and_its_spread_over_repetitions_match_scipy() {
     let case = Case::new("w_scipy");
@@ -184,22 +208,7 @@ fn w_and_its_spread_over_repetitions_match_scipy() {
             "--scheme knndm --folds 4 --repeats 3 --prediction-table {s}.targets --prediction-layer targets",
         );
         let run = run_id(&summary);
-        let prediction = distances(&case, store, &run, "prediction", None);
-        assert_eq!(prediction.len(), 144);
-        let mut all = Vec::new();
-        let mut per = Vec::new();
-        for repetition in 1..=3 {
-            let cv = distances(&case, store, &run, "cv", Some(repetition));
-            assert_eq!(cv.len(), UNITS);
-            per.push(scipy_w(&cv, &prediction));
-            all.extend(cv);
-        }
-        let pooled = scipy_w(&all, &prediction);
-        assert!((w_nnd(&case, store, &run, "pooled") - pooled).abs() <= 1e-12 * pooled);
-        let mean = per.iter().sum::<f64>() / 3.0;
-        let sd = (per.iter().map(|w| (w - mean).powi(2)).sum::<f64>() / 2.0).sqrt();
-        assert!((w_nnd(&case, store, &run, "repeat_mean") - mean).abs() <= 1e-12 * mean);
-        assert!((w_nnd(&case, store, &run, "repeat_sd") - sd).abs() <= 1e-9 * mean);
+        let pooled = assert_w_matches_scipy(&case, store, &run, 3);
         let reported = &summary["runs"][0]["matching"];
         assert!((reported["w"].as_f64().unwrap() - pooled).abs() <= 1e-12 * pooled);
         assert_eq!(reported["w_per_repetition"].as_array().unwrap().len(), 3);
@@ -215,5 +224,48 @@ fn w_and_its_spread_over_repetitions_match_scipy() {
             ));
             assert_eq!(off, "0");
         }
+    }
+}
+
+#[test]
+fn a_run_scored_from_outside_geofold_gets_the_distance_match_of_its_assigned_folds() {
+    let case = Case::new("w_scored");
+    create_units(&case);
+    case.copy_to_gpkg("units");
+    case.copy_to_gpkg("targets");
+    for store in STORES {
+        let assigned = case.ok(
+            store,
+            "--scheme knndm --folds 4 --repeats 2 --assign-only --prediction-table {s}.targets --prediction-layer targets",
+        );
+        let run = run_id(&assigned);
+        // Any predictions will do: W depends only on the folds and the
+        // prediction locations recorded when the folds were assigned.
+        let members = format!(
+            "SELECT unit_id, repetition, fold, 0.0 AS predicted FROM {{r}}.fold_members WHERE run_id = '{run}'"
+        );
+        let mut command = case.workdir.geofold();
+        command.args(["score", "--run", &run, "--json"]);
+        match store {
+            Store::Postgis => {
+                case.script(&format!("CREATE TABLE {{s}}.predicted AS {members}"));
+                command.args(["--db", &db_uri(), "--results-schema", &case.r]);
+                command.args(["--predictions", &format!("{}.predicted", case.s)]);
+            }
+            Store::Gpkg => {
+                let path = case.results_gpkg();
+                sqlite(
+                    &path,
+                    &format!("CREATE TABLE predicted AS {}", members.replace("{r}.", "")),
+                );
+                command.args(["--results-gpkg", &path.display().to_string()]);
+                command.args(["--predictions", "predicted"]);
+            }
+        }
+        let output = crate::common::run(command);
+        assert_eq!(code(&output), 0, "{store:?}: {}", stderr(&output));
+        let pooled = assert_w_matches_scipy(&case, store, &run, 2);
+        let reported = &json(&output)["runs"][0]["matching"];
+        assert!((reported["w"].as_f64().unwrap() - pooled).abs() <= 1e-12 * pooled);
     }
 }
