@@ -28,9 +28,11 @@ use std::path::PathBuf;
 
 use uuid::Uuid;
 
+use self::assigned::AssignedRun;
+
 use crate::adapters::gpkg::scoring::read_predictions_file;
 use crate::adapters::history::Store;
-use crate::adapters::{AssignedRun, ColumnSpec, PredictionRow};
+use crate::adapters::{ColumnSpec, PredictionRow};
 use crate::core::folds::{build_scheme, FoldSet, Region};
 use crate::core::matching::Matching;
 use crate::core::metrics::Family;
@@ -102,27 +104,20 @@ fn open_store(spec: &ScoreSpec) -> Result<Box<dyn Store>, Error> {
 /// database and file errors. Nothing is written on error.
 pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
     let mut store = open_store(spec)?;
-    let job = store
-        .runs(None, usize::MAX)?
-        .into_iter()
-        .find(|run| run.run_id == spec.run_id)
-        .map(|run| run.job)
-        .ok_or_else(|| Error::NotFound {
-            what: format!("run {} in {}", spec.run_id, store.location()),
-        })?;
+    let job = assigned::run_record(store.as_mut(), spec.run_id)?.job;
     store.lock_job(&job, spec.limits.wait())?;
-    let run = store.assigned_run(spec.run_id)?;
-    if run.status != "assigned" {
+    let run = assigned::assigned_run(store.as_mut(), spec.run_id)?;
+    if run.record.status != "assigned" {
         return Err(Error::Usage(format!(
             "run {} has status {}: only a run made with geofold run --assign-only, not yet scored, takes \
              predictions",
-            spec.run_id, run.status
+            spec.run_id, run.record.status
         )));
     }
-    let family = Family::from_name(&run.family).ok_or_else(|| {
+    let family = Family::from_name(&run.record.family).ok_or_else(|| {
         Error::Internal(format!(
             "run {} has an unknown family {}",
-            run.run_id, run.family
+            run.run_id, run.record.family
         ))
     })?;
     let run_spec = source_spec(&run, spec)?;
@@ -143,7 +138,7 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
     )?;
     drop(source);
     let fingerprint = data.fingerprint();
-    if run.input_fingerprint.as_deref() != Some(fingerprint.as_str()) {
+    if run.record.input_fingerprint.as_deref() != Some(fingerprint.as_str()) {
         return Err(Error::input(
             &info.table,
             None,
@@ -182,21 +177,21 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
         std::slice::from_mut(&mut outcome),
         &data,
         &DEFAULT_RESIDUAL_WEIGHTS,
-        run.seed as u64,
+        run.record.seed as u64,
     );
     let record = RunRecord {
         run_id: run.run_id,
-        job: run.job.clone(),
+        job: run.record.job.clone(),
         primary_run_id: run.primary_run_id,
         started_at_micros: 0,
-        scheme: run.scheme.clone(),
-        model: run.model.clone(),
+        scheme: run.record.scheme.clone(),
+        model: run.record.model.clone(),
         family: family.name(),
-        parameters: run.parameters.clone(),
-        seed: run.seed as u64,
-        repeats: run.repeats as u32,
-        folds: run.folds as u32,
-        tool_version: run.tool_version.clone(),
+        parameters: run.record.parameters.clone(),
+        seed: run.record.seed as u64,
+        repeats: run.record.repeats as u32,
+        folds: run.record.folds as u32,
+        tool_version: run.record.tool_version.clone(),
         session: String::new(),
         input_fingerprint: fingerprint.clone(),
     };
@@ -208,13 +203,13 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
         late: None,
     }];
     let report = store.commit(&info, &data, &finished)?;
-    let scheme_options: Options = run.parameters["scheme"]
+    let scheme_options: Options = run.record.parameters["scheme"]
         .as_object()
         .cloned()
         .unwrap_or_default();
-    let described = build_scheme(&run.scheme, &scheme_options)
+    let described = build_scheme(&run.record.scheme, &scheme_options)
         .map(|scheme| scheme.describe(&|value| info.length(value)))
-        .unwrap_or_else(|_| run.scheme.clone());
+        .unwrap_or_else(|_| run.record.scheme.clone());
     Ok(Summary::new(
         &info,
         &data,
@@ -225,7 +220,7 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
             "a model fitted outside geofold (held-out predictions from {})",
             spec.predictions.display()
         ),
-        run.parameters["exclusion-radius"].as_f64(),
+        run.record.parameters["exclusion-radius"].as_f64(),
         report,
     ))
 }
@@ -233,7 +228,7 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
 /// The specification that reads the run's source again, from what
 /// `--assign-only` recorded (a PostGIS source in the results' database).
 fn source_spec(run: &AssignedRun, spec: &ScoreSpec) -> Result<RunSpec, Error> {
-    let recorded = &run.parameters["assignment"];
+    let recorded = &run.record.parameters["assignment"];
     let missing = || Error::Store {
         store: format!("run {}", run.run_id),
         problem: "it records no source to read again (runs.parameters.assignment)".into(),
@@ -255,17 +250,17 @@ fn source_spec(run: &AssignedRun, spec: &ScoreSpec) -> Result<RunSpec, Error> {
             .and_then(|v| i32::try_from(v).ok()),
         assume_metres: false,
         strict: recorded["strict"].as_bool().unwrap_or(false),
-        scheme: run.scheme.clone(),
+        scheme: run.record.scheme.clone(),
         scheme_options: Options::new(),
-        model: run.model.clone(),
+        model: run.record.model.clone(),
         model_options: Options::new(),
         exclusion_radius: None,
         prediction: None,
-        repeats: run.repeats as u32,
-        seed: run.seed as u64,
+        repeats: run.record.repeats as u32,
+        seed: run.record.seed as u64,
         compare_random: false,
         results: spec.results.clone(),
-        job: Some(run.job.clone()),
+        job: Some(run.record.job.clone()),
         limits: spec.limits,
         assign_only: true,
         unseen_levels: UnseenPolicy::default(),
@@ -280,8 +275,8 @@ fn source_spec(run: &AssignedRun, spec: &ScoreSpec) -> Result<RunSpec, Error> {
 /// exclusions and regions (regions kept for repetition 1, for the maps).
 fn recorded_folds(run: &AssignedRun, data: &Dataset) -> Result<Vec<FoldSet>, Error> {
     let index = id_index(data);
-    let repeats = run.repeats.max(1) as usize;
-    let k = u32::try_from(run.folds).unwrap_or(0);
+    let repeats = run.record.repeats.max(1) as usize;
+    let k = u32::try_from(run.record.folds).unwrap_or(0);
     let broken = |what: String| Error::Store {
         store: format!("run {}", run.run_id),
         problem: format!("its recorded folds do not match its units: {what}"),
@@ -481,5 +476,6 @@ pub fn check_predictions(
     Err(Error::Input { problems })
 }
 
+mod assigned;
 #[cfg(test)]
 mod tests;

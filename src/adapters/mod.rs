@@ -269,42 +269,6 @@ pub struct StoredRun {
     pub scores: Vec<(String, String, Option<f64>)>,
 }
 
-/// A run made with `--assign-only`, read back for `geofold score`.
-pub struct AssignedRun {
-    /// Its id.
-    pub run_id: Uuid,
-    /// Its job.
-    pub job: String,
-    /// The primary run of a comparison run.
-    pub primary_run_id: Option<Uuid>,
-    /// `assigned` when it awaits predictions.
-    pub status: String,
-    /// Scheme.
-    pub scheme: String,
-    /// Model (`external`).
-    pub model: String,
-    /// Family name.
-    pub family: String,
-    /// Scheme and model options, and how to read the source again.
-    pub parameters: serde_json::Value,
-    /// Seed.
-    pub seed: i64,
-    /// Repetitions.
-    pub repeats: i64,
-    /// Folds.
-    pub folds: i64,
-    /// Fingerprint of the units when the folds were assigned.
-    pub input_fingerprint: Option<String>,
-    /// geofold version that assigned the folds.
-    pub tool_version: String,
-    /// `(unit_id, repetition, fold)` of each held-out row, 1-based.
-    pub assignments: Vec<(String, i64, i64)>,
-    /// `(repetition, fold, unit_id)` of each exclusion, 1-based.
-    pub exclusions: Vec<(i64, i64, String)>,
-    /// The fold regions of repetition 1 (for the job's map layers).
-    pub regions: Vec<gpkg::import::RegionLayerRow>,
-}
-
 /// One row of a table of held-out predictions loaded for `geofold score`;
 /// every value as found (None for NULL).
 #[derive(Debug, Clone, PartialEq)]
@@ -378,12 +342,6 @@ pub trait ResultStore {
     /// # Errors
     /// An unknown or unsuccessful run.
     fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error>;
-    /// A run with its recorded folds (`held_out` rows) and exclusions, for
-    /// `geofold score`.
-    ///
-    /// # Errors
-    /// [`Error::NotFound`] for an unknown run; database or file errors.
-    fn assigned_run(&mut self, run_id: Uuid) -> Result<AssignedRun, Error>;
     /// Every row of a table of held-out predictions in the store's database
     /// or file (`schema.table`, or a GeoPackage table or layer).
     ///

@@ -1,125 +1,16 @@
-//! What `geofold score` reads from a GeoPackage results file: a run
-//! awaiting predictions with its recorded folds and exclusions, and a table
-//! of held-out predictions (an attribute table, a layer, or a plain SQLite
+//! What `geofold score` reads from a GeoPackage besides the results tables
+//! (which it reads through `ReadBack`): the analyst's table of held-out
+//! predictions (an attribute table, a layer, or a plain SQLite
 //! table written by any tool) in that file or another GeoPackage.
 
 use std::path::Path;
 
-use geo_types::{Geometry, MultiPolygon};
-use geozero::ToGeo;
 use rusqlite::types::ValueRef;
-use rusqlite::{params, Connection, OptionalExtension};
-use uuid::Uuid;
+use rusqlite::Connection;
 
-use super::import::RegionLayerRow;
-use super::{blob, open_file, quote, sqlite_error};
-use crate::adapters::{resolve_columns, AssignedRun, NameMatch, PredictionRow, PREDICTION_COLUMNS};
+use super::{open_file, quote, sqlite_error};
+use crate::adapters::{resolve_columns, NameMatch, PredictionRow, PREDICTION_COLUMNS};
 use crate::error::{Error, Location};
-
-/// The run `run_id` of the results file `path` with its folds.
-///
-/// # Errors
-/// [`Error::NotFound`] for an unknown run; SQLite errors.
-pub fn assigned_run(conn: &Connection, path: &Path, run_id: Uuid) -> Result<AssignedRun, Error> {
-    let error = |e: rusqlite::Error| sqlite_error(path, &format!("reading run {run_id}"), &e);
-    let id = run_id.to_string();
-    let row = conn
-        .query_row(
-            "SELECT job, primary_run_id, status, scheme, model, family, parameters, seed, repeats, folds,
-                input_fingerprint, tool_version FROM runs WHERE run_id = ?1",
-            [&id],
-            |row| {
-                Ok((
-                    row.get::<_, String>(0)?,
-                    row.get::<_, Option<String>>(1)?,
-                    row.get::<_, String>(2)?,
-                    row.get::<_, String>(3)?,
-                    row.get::<_, String>(4)?,
-                    row.get::<_, String>(5)?,
-                    row.get::<_, String>(6)?,
-                    row.get::<_, i64>(7)?,
-                    row.get::<_, i64>(8)?,
-                    row.get::<_, i64>(9)?,
-                    row.get::<_, Option<String>>(10)?,
-                    row.get::<_, String>(11)?,
-                ))
-            },
-        )
-        .optional()
-        .map_err(error)?
-        .ok_or_else(|| Error::NotFound {
-            what: format!("run {run_id} in {}", path.display()),
-        })?;
-    let mut run = AssignedRun {
-        run_id,
-        job: row.0,
-        primary_run_id: row.1.and_then(|text| Uuid::parse_str(&text).ok()),
-        status: row.2,
-        scheme: row.3,
-        model: row.4,
-        family: row.5,
-        parameters: serde_json::from_str(&row.6).unwrap_or_default(),
-        seed: row.7,
-        repeats: row.8,
-        folds: row.9,
-        input_fingerprint: row.10,
-        tool_version: row.11,
-        assignments: Vec::new(),
-        exclusions: Vec::new(),
-        regions: Vec::new(),
-    };
-    let mut statement = conn
-        .prepare("SELECT unit_id, repetition, fold FROM held_out WHERE run_id = ?1 ORDER BY fid")
-        .map_err(error)?;
-    let mut rows = statement.query(params![id]).map_err(error)?;
-    while let Some(row) = rows.next().map_err(error)? {
-        run.assignments.push((
-            row.get(0).map_err(error)?,
-            row.get(1).map_err(error)?,
-            row.get(2).map_err(error)?,
-        ));
-    }
-    let mut statement = conn
-        .prepare(
-            "SELECT repetition, fold, unit_id FROM fold_exclusions WHERE run_id = ?1 ORDER BY fid",
-        )
-        .map_err(error)?;
-    let mut rows = statement.query(params![id]).map_err(error)?;
-    while let Some(row) = rows.next().map_err(error)? {
-        run.exclusions.push((
-            row.get(0).map_err(error)?,
-            row.get(1).map_err(error)?,
-            row.get(2).map_err(error)?,
-        ));
-    }
-    let mut statement = conn
-        .prepare(
-            "SELECT fold, kind, label, units, geom FROM fold_regions WHERE run_id = ?1 AND repetition = 1
-             ORDER BY region_id",
-        )
-        .map_err(error)?;
-    let mut rows = statement.query(params![id]).map_err(error)?;
-    while let Some(row) = rows.next().map_err(error)? {
-        let bytes: Vec<u8> = row.get(4).map_err(error)?;
-        let Ok(header) = blob::check(&bytes) else {
-            continue;
-        };
-        let geometry = match geozero::wkb::Wkb(&bytes[header.wkb_offset..]).to_geo() {
-            Ok(Geometry::MultiPolygon(shape)) => shape,
-            Ok(Geometry::Polygon(polygon)) => MultiPolygon::new(vec![polygon]),
-            _ => continue,
-        };
-        run.regions.push(RegionLayerRow {
-            run_id: id.clone(),
-            fold: row.get(0).map_err(error)?,
-            kind: row.get(1).map_err(error)?,
-            label: row.get(2).map_err(error)?,
-            units: row.get(3).map_err(error)?,
-            geometry,
-        });
-    }
-    Ok(run)
-}
 
 /// The rows of the predictions table `table` in the GeoPackage at `path`.
 ///

@@ -1,14 +1,13 @@
-//! What `geofold score` reads from a PostGIS results schema: a run awaiting
-//! predictions with its recorded folds and exclusions, and a table of
-//! held-out predictions loaded by the analyst (in any schema of the same
+//! What `geofold score` reads from PostGIS besides the results tables
+//! (which it reads through `ReadBack`): the analyst's table of held-out
+//! predictions loaded by the analyst (in any schema of the same
 //! database).
 
 use futures_util::{pin_mut, StreamExt};
-use uuid::Uuid;
 
 use super::store::PostgisStore;
 use super::{database_error, quote_ident, split_qualified};
-use crate::adapters::{resolve_columns, AssignedRun, NameMatch, PredictionRow, PREDICTION_COLUMNS};
+use crate::adapters::{resolve_columns, NameMatch, PredictionRow, PREDICTION_COLUMNS};
 use crate::error::{Error, Location};
 
 const INTEGER_TYPES: &[&str] = &["int2", "int4", "int8"];
@@ -16,93 +15,6 @@ const ID_TYPES: &[&str] = &["int2", "int4", "int8", "text", "varchar", "bpchar"]
 const NUMERIC_TYPES: &[&str] = &["int2", "int4", "int8", "float4", "float8", "numeric"];
 
 impl PostgisStore {
-    /// See [`crate::adapters::ResultStore::assigned_run`].
-    ///
-    /// # Errors
-    /// [`Error::NotFound`] for an unknown run; database errors.
-    pub fn read_assigned_run(&self, run_id: Uuid) -> Result<AssignedRun, Error> {
-        let session = self.session();
-        let schema = quote_ident(self.schema());
-        let action = format!("reading run {run_id}");
-        session.runtime.block_on(async {
-            let get = |e: tokio_postgres::Error| database_error(&action, &e);
-            let row = session
-                .client
-                .query_opt(
-                    &format!(
-                        "SELECT job, primary_run_id, status, scheme, model, family, parameters, seed, repeats::int8,
-                            folds::int8, input_fingerprint, tool_version
-                         FROM {schema}.runs WHERE run_id = $1"
-                    ),
-                    &[&run_id],
-                )
-                .await
-                .map_err(get)?
-                .ok_or_else(|| Error::NotFound {
-                    what: format!("run {run_id} in results schema {}", self.schema()),
-                })?;
-            let mut run = AssignedRun {
-                run_id,
-                job: row.try_get(0).map_err(get)?,
-                primary_run_id: row.try_get(1).map_err(get)?,
-                status: row.try_get(2).map_err(get)?,
-                scheme: row.try_get(3).map_err(get)?,
-                model: row.try_get(4).map_err(get)?,
-                family: row.try_get(5).map_err(get)?,
-                parameters: row.try_get(6).map_err(get)?,
-                seed: row.try_get(7).map_err(get)?,
-                repeats: row.try_get(8).map_err(get)?,
-                folds: row.try_get(9).map_err(get)?,
-                input_fingerprint: row.try_get(10).map_err(get)?,
-                tool_version: row.try_get(11).map_err(get)?,
-                assignments: Vec::new(),
-                exclusions: Vec::new(),
-                regions: Vec::new(),
-            };
-            let rows = session
-                .client
-                .query_raw(
-                    &format!(
-                        "SELECT unit_id, repetition::int8, fold::int8 FROM {schema}.held_out WHERE run_id = $1"
-                    ),
-                    [&run_id],
-                )
-                .await
-                .map_err(get)?;
-            pin_mut!(rows);
-            while let Some(row) = rows.next().await {
-                let row = row.map_err(get)?;
-                run.assignments.push((
-                    row.try_get(0).map_err(get)?,
-                    row.try_get(1).map_err(get)?,
-                    row.try_get(2).map_err(get)?,
-                ));
-            }
-            for row in session
-                .client
-                .query(
-                    &format!(
-                        "SELECT repetition::int8, fold::int8, unit_id FROM {schema}.fold_exclusions WHERE run_id = $1"
-                    ),
-                    &[&run_id],
-                )
-                .await
-                .map_err(get)?
-            {
-                run.exclusions.push((
-                    row.try_get(0).map_err(get)?,
-                    row.try_get(1).map_err(get)?,
-                    row.try_get(2).map_err(get)?,
-                ));
-            }
-            Ok::<_, Error>(run)
-        })
-        .and_then(|mut run| {
-            run.regions = self.region_layer_rows(run_id)?;
-            Ok(run)
-        })
-    }
-
     /// See [`crate::adapters::ResultStore::read_predictions`].
     ///
     /// # Errors

@@ -26,8 +26,7 @@ use super::rows::{insert_rows, job_descriptions, rewrite_job_layers, UnitRows};
 use super::schema::{self, Srs, TriggerSet};
 use super::{check_geopackage, file_error, open_file, sqlite_error, tables};
 use crate::adapters::{
-    add_count, AssignedRun, PredictionRow, ResultStore, SourceInfo, StoreReport, StoredInspection,
-    StoredRun,
+    add_count, PredictionRow, ResultStore, SourceInfo, StoreReport, StoredInspection, StoredRun,
 };
 use crate::core::units::Dataset;
 use crate::error::{Error, FileProblem};
@@ -414,10 +413,6 @@ impl ResultStore for GpkgStore {
             .into_iter()
             .find(|run| run.run_id == run_id)
             .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
-    }
-
-    fn assigned_run(&mut self, run_id: Uuid) -> Result<AssignedRun, Error> {
-        super::scoring::assigned_run(self.conn()?, &self.path, run_id)
     }
 
     fn read_predictions(&mut self, table: &str) -> Result<Vec<PredictionRow>, Error> {

@@ -23,8 +23,8 @@ use super::layers::job_views;
 use super::migrate::{lock_key, prepare_schema};
 use super::{database_error, quote_ident, Session};
 use crate::adapters::{
-    add_count, AssignedRun, Layer, PredictionRow, ResultStore, SourceInfo, StoreReport,
-    StoredInspection, StoredRun,
+    add_count, Layer, PredictionRow, ResultStore, SourceInfo, StoreReport, StoredInspection,
+    StoredRun,
 };
 use crate::core::units::{Dataset, IdKind};
 use crate::error::Error;
@@ -522,10 +522,6 @@ impl ResultStore for PostgisStore {
             .into_iter()
             .find(|run| run.run_id == run_id)
             .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
-    }
-
-    fn assigned_run(&mut self, run_id: Uuid) -> Result<AssignedRun, Error> {
-        self.read_assigned_run(run_id)
     }
 
     fn read_predictions(&mut self, table: &str) -> Result<Vec<PredictionRow>, Error> {
