@@ -149,6 +149,26 @@ fn a_job_file_with_two_jobs_runs_gates_and_records_history_on_postgis() {
     assert_eq!(gate["baseline_from"], format!("pinned run {first_grid}"));
     let failed_pin = case.run(&["pin", "--config", file, "--job", "grid", "not-a-run"]);
     assert_eq!(code(&failed_pin), 64);
+    // Unpinning puts the median baseline back; unpinning again changes nothing.
+    let unpin = [
+        "pin", "--config", file, "--job", "grid", "--unpin", "--json",
+    ];
+    let unpinned = case.run(&[&unpin[..], &[first_grid.as_str()]].concat());
+    assert_eq!(code(&unpinned), 0);
+    assert_eq!(json(&unpinned)["changed"], true);
+    assert_eq!(
+        case.query("SELECT count(*) FROM {r}.runs WHERE pinned"),
+        "0"
+    );
+    let against_median = json(&case.run(&["run", "--config", file, "--job", "grid", "--json"]));
+    let gate = &job_report(&against_median, "grid")["summary"]["gates"][0];
+    assert!(
+        gate["baseline_from"].as_str().unwrap().contains("median"),
+        "{gate}"
+    );
+    let again = case.run(&[&unpin[..], &[first_grid.as_str()]].concat());
+    assert_eq!(code(&again), 0);
+    assert_eq!(json(&again)["changed"], false);
 }
 
 #[test]
@@ -227,6 +247,26 @@ fn a_job_file_with_two_jobs_runs_gates_and_records_history_on_geopackage() {
         )
         .unwrap();
     drop(conn);
+    // A pinned run is spared by prune; unpinned, it goes.
+    let pin = |extra: &[&str]| {
+        let mut args = vec!["pin", "--gpkg", "basin.gpkg", &older];
+        args.extend_from_slice(extra);
+        code(&run(&args))
+    };
+    assert_eq!(pin(&[]), 0);
+    let spared = json(&run(&[
+        "prune",
+        "--config",
+        "g.toml",
+        "--job",
+        "random",
+        "--keep",
+        "1",
+        "--dry-run",
+        "--json",
+    ]));
+    assert_eq!(spared["removed"].as_array().unwrap().len(), 0, "{spared}");
+    assert_eq!(pin(&["--unpin"]), 0);
     let pruned = json(&run(&[
         "prune", "--config", "g.toml", "--job", "random", "--keep", "1", "--json",
     ]));

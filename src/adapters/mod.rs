@@ -337,11 +337,14 @@ pub trait ResultStore {
     /// # Errors
     /// Database or file errors.
     fn runs(&mut self, job: Option<&str>, limit: usize) -> Result<Vec<StoredRun>, Error>;
-    /// Pins run `run_id` as its job's baseline (unpinning the job's others).
+    /// With `pinned`, pins run `run_id` as its job's baseline (unpinning the
+    /// job's others) if it is a successful primary run; without, unpins it.
+    /// Whether any row changed: false for a run that cannot be pinned, or
+    /// that was not pinned.
     ///
     /// # Errors
-    /// An unknown or unsuccessful run.
-    fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error>;
+    /// Database or file errors.
+    fn set_pinned(&mut self, run_id: Uuid, pinned: bool) -> Result<bool, Error>;
     /// Every row of a table of held-out predictions in the store's database
     /// or file (`schema.table`, or a GeoPackage table or layer).
     ///

@@ -393,26 +393,19 @@ impl ResultStore for GpkgStore {
         .map_err(|e| sqlite_error(&path, "reading the job's last inspection", &e))
     }
 
-    fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error> {
+    fn set_pinned(&mut self, run_id: Uuid, pinned: bool) -> Result<bool, Error> {
         let path = self.path.clone();
-        let conn = self.conn()?;
-        let changed = conn
-            .execute(
-                "UPDATE runs SET pinned = (run_id = ?1)
-                 WHERE job = (SELECT job FROM runs WHERE run_id = ?1 AND status = 'succeeded' AND primary_run_id IS NULL)",
-                [run_id.to_string()],
-            )
-            .map_err(|e| sqlite_error(&path, "pinning the baseline run", &e))?;
-        if changed == 0 {
-            return Err(Error::Usage(format!(
-                "run {run_id} is not a successful primary run in {}: only those can be pinned",
-                path.display()
-            )));
-        }
-        self.runs(None, usize::MAX)?
-            .into_iter()
-            .find(|run| run.run_id == run_id)
-            .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
+        let sql = if pinned {
+            "UPDATE runs SET pinned = (run_id = ?1)
+             WHERE job = (SELECT job FROM runs WHERE run_id = ?1 AND status = 'succeeded' AND primary_run_id IS NULL)"
+        } else {
+            "UPDATE runs SET pinned = 0 WHERE run_id = ?1 AND pinned"
+        };
+        let changed = self
+            .conn()?
+            .execute(sql, [run_id.to_string()])
+            .map_err(|e| sqlite_error(&path, "pinning or unpinning the baseline run", &e))?;
+        Ok(changed > 0)
     }
 
     fn read_predictions(&mut self, table: &str) -> Result<Vec<PredictionRow>, Error> {

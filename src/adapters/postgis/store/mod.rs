@@ -497,31 +497,23 @@ impl ResultStore for PostgisStore {
         })
     }
 
-    fn pin(&mut self, run_id: Uuid) -> Result<StoredRun, Error> {
+    fn set_pinned(&mut self, run_id: Uuid, pinned: bool) -> Result<bool, Error> {
         let runs = self.qualified("runs");
-        let action = "pinning the baseline run";
+        let sql = if pinned {
+            format!(
+                "UPDATE {runs} r SET pinned = (r.run_id = $1)
+                 FROM {runs} p WHERE p.run_id = $1 AND p.status = 'succeeded' AND p.primary_run_id IS NULL
+                 AND r.job = p.job"
+            )
+        } else {
+            format!("UPDATE {runs} SET pinned = false WHERE run_id = $1 AND pinned")
+        };
         let changed = self
             .session
             .runtime
-            .block_on(self.session.client.execute(
-                &format!(
-                    "UPDATE {runs} r SET pinned = (r.run_id = $1)
-                     FROM {runs} p WHERE p.run_id = $1 AND p.status = 'succeeded' AND p.primary_run_id IS NULL
-                     AND r.job = p.job"
-                ),
-                &[&run_id],
-            ))
-            .map_err(|e| database_error(action, &e))?;
-        if changed == 0 {
-            return Err(Error::Usage(format!(
-                "run {run_id} is not a successful primary run in schema {}: only those can be pinned",
-                self.schema
-            )));
-        }
-        self.runs(None, usize::MAX)?
-            .into_iter()
-            .find(|run| run.run_id == run_id)
-            .ok_or_else(|| Error::Internal(format!("run {run_id} vanished after pinning")))
+            .block_on(self.session.client.execute(&sql, &[&run_id]))
+            .map_err(|e| database_error("pinning or unpinning the baseline run", &e))?;
+        Ok(changed > 0)
     }
 
     fn read_predictions(&mut self, table: &str) -> Result<Vec<PredictionRow>, Error> {
