@@ -59,10 +59,11 @@ impl Summary {
         if let Some(matching) = &run.matching {
             let _ = writeln!(
                 out,
-                "  distance matching: W = {} (Wasserstein-1 distance between the test-to-training distances during \
-                 cross-validation, median {}, and the distances from the prediction locations to the data, median \
-                 {}; 0 is a perfect match, in CRS units)",
+                "  distance matching: W = {} ({}: the Wasserstein-1 distance between the test-to-training distances \
+                 during cross-validation, median {}, and the distances from the prediction locations to the data, \
+                 median {}; 0 is a perfect match)",
                 number(matching.w),
+                self.source.length(matching.w),
                 self.source.length(matching.cv_median),
                 self.source.length(matching.prediction_median)
             );
