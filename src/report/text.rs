@@ -12,6 +12,7 @@ impl Summary {
             run.scheme, run.run_id, run.role, run.seed, run.repeats
         );
         let _ = writeln!(out, "  {}", run.scheme_described);
+        self.matching_text(out, run);
         for warning in &run.warnings {
             let _ = writeln!(out, "  warning: {warning}");
         }
@@ -37,6 +38,33 @@ impl Summary {
         );
     }
 
+    /// The distance-matching lines of a run given prediction locations.
+    fn matching_text(&self, out: &mut String, run: &RunSummary) {
+        let Some(matching) = &run.matching else {
+            return;
+        };
+        let _ = writeln!(
+            out,
+            "  distance matching: W = {} ({}: the Wasserstein-1 distance between the test-to-training distances \
+             during cross-validation, median {}, and the distances from the prediction locations to the data, \
+             median {}; 0 is a perfect match)",
+            number(matching.w),
+            self.source.length(matching.w),
+            self.source.length(matching.cv_median),
+            self.source.length(matching.prediction_median)
+        );
+        if matching.w_per_repetition.len() > 1 {
+            let spread = crate::core::metrics::spread(matching.w_per_repetition.iter().copied());
+            let _ = writeln!(
+                out,
+                "  W over the {} repetitions (mean ± SD): {} ± {}",
+                matching.w_per_repetition.len(),
+                number(spread.mean),
+                number(spread.sd)
+            );
+        }
+    }
+
     pub(super) fn run_text(&self, out: &mut String, run: &RunSummary) {
         let _ = writeln!(out);
         let _ = writeln!(
@@ -56,36 +84,7 @@ impl Summary {
             );
         }
         split_text(out, &run.split);
-        if let Some(matching) = &run.matching {
-            let _ = writeln!(
-                out,
-                "  distance matching: W = {} ({}: the Wasserstein-1 distance between the test-to-training distances \
-                 during cross-validation, median {}, and the distances from the prediction locations to the data, \
-                 median {}; 0 is a perfect match)",
-                number(matching.w),
-                self.source.length(matching.w),
-                self.source.length(matching.cv_median),
-                self.source.length(matching.prediction_median)
-            );
-            if matching.w_per_repetition.len() > 1 {
-                let n = matching.w_per_repetition.len() as f64;
-                let mean = matching.w_per_repetition.iter().sum::<f64>() / n;
-                let sd = (matching
-                    .w_per_repetition
-                    .iter()
-                    .map(|w| (w - mean).powi(2))
-                    .sum::<f64>()
-                    / (n - 1.0))
-                    .sqrt();
-                let _ = writeln!(
-                    out,
-                    "  W over the {} repetitions (mean ± SD): {} ± {}",
-                    matching.w_per_repetition.len(),
-                    number(mean),
-                    number(sd)
-                );
-            }
-        }
+        self.matching_text(out, run);
         for warning in &run.warnings {
             let _ = writeln!(out, "  warning: {warning}");
         }

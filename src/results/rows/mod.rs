@@ -296,13 +296,10 @@ pub fn run_rows<'a>(
     }
     if let Some(matching) = &outcome.matching {
         run_scores.push((MATCH_SCORE, "pooled", Some(matching.w)));
-        let per = &matching.w_per_repetition;
-        if per.len() > 1 {
-            let n = per.len() as f64;
-            let mean = per.iter().sum::<f64>() / n;
-            let sd = (per.iter().map(|w| (w - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
-            run_scores.push((MATCH_SCORE, "repeat_mean", Some(mean)));
-            run_scores.push((MATCH_SCORE, "repeat_sd", Some(sd)));
+        if matching.w_per_repetition.len() > 1 {
+            let spread = crate::core::metrics::spread(matching.w_per_repetition.iter().copied());
+            run_scores.push((MATCH_SCORE, "repeat_mean", Some(spread.mean)));
+            run_scores.push((MATCH_SCORE, "repeat_sd", Some(spread.sd)));
         }
     }
     let all: Vec<Box<dyn RowSource<'a> + 'a>> = vec![
