@@ -289,6 +289,16 @@ pub fn scores(page: &mut String, report: &ReportInput) {
         );
     }
     if listed {
+        // Run-level scores (the distance match W) have no per-fold values.
+        let names: Vec<&String> = names
+            .iter()
+            .filter(|name| {
+                table
+                    .folds
+                    .iter()
+                    .any(|f| value_of(&f.scores, name.as_str()).is_some())
+            })
+            .collect();
         page.push_str(
             "<h3>Per fold</h3><table class=\"folds\"><thead><tr><th class=\"num\">Repetition</th>\
              <th class=\"num\">Fold</th><th class=\"num\">Training units</th><th class=\"num\">Test units</th>",
