@@ -33,6 +33,8 @@ use self::assigned::AssignedRun;
 use crate::adapters::gpkg::scoring::read_predictions_file;
 use crate::adapters::history::Store;
 use crate::adapters::{ColumnSpec, PredictionRow};
+use crate::core::buckets::Buckets;
+use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
 use crate::core::folds::{build_scheme, FoldSet, Region};
 use crate::core::matching::Matching;
 use crate::core::metrics::Family;
@@ -169,6 +171,16 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
     // The distance match of a run given prediction locations, from the
     // distances stored when its folds were assigned.
     let (cv, prediction) = nearest_distances(store.as_mut(), &run.run_id.to_string())?;
+    // For the summary, the test-to-training distances as the assignment
+    // stored them (the same seeded figures; the scored write keeps its rows).
+    if let Some(first) = outcome.repetitions.first() {
+        let buckets = Buckets::new(&data.points);
+        outcome.fold_distances =
+            fold_distances(&first.folds, &data.points, &buckets, run.record.seed as u64);
+    }
+    outcome
+        .fold_distances
+        .extend(summarise("prediction", None, &prediction, None));
     if !prediction.is_empty() {
         let cv: Vec<&[f64]> = cv.iter().map(Vec::as_slice).collect();
         outcome.matching = Some(Matching::new(prediction, &cv));

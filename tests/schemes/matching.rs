@@ -265,10 +265,15 @@ fn a_run_scored_from_outside_geofold_gets_the_distance_match_of_its_assigned_fol
         let output = crate::common::run(command);
         assert_eq!(code(&output), 0, "{store:?}: {}", stderr(&output));
         let pooled = assert_w_matches_scipy(&case, store, &run, 2);
-        // The same W as the assignment's summary showed before any fit.
-        for summary in [&json(&output), &assigned] {
+        // The same W as the assignment's summary showed before any fit, and
+        // the same test-to-training distances.
+        let scored = json(&output);
+        for summary in [&scored, &assigned] {
             let reported = &summary["runs"][0]["matching"];
             assert!((reported["w"].as_f64().unwrap() - pooled).abs() <= 1e-12 * pooled);
         }
+        let distances = &scored["runs"][0]["fold_distances"];
+        assert!(!distances.as_array().unwrap().is_empty(), "{scored}");
+        assert_eq!(distances, &assigned["runs"][0]["fold_distances"]);
     }
 }
