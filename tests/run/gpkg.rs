@@ -174,6 +174,34 @@ fn malformed_files_are_refused_naming_file_layer_and_row() {
             says: &[":units.x1 (row id=5)", "TEXT \"n/a\""],
         },
         BadCase {
+            name: "a date feature",
+            make: |workdir, file| {
+                lattice(workdir, file);
+                edit(workdir, file, "ALTER TABLE units ADD COLUMN surveyed DATE;");
+            },
+            replace: &[(8, "x1,surveyed")],
+            extra: &[],
+            code: 65,
+            says: &[
+                ":units.surveyed",
+                "column has type \"DATE\"; it must be numeric (INTEGER, REAL, DOUBLE…)",
+            ],
+        },
+        BadCase {
+            name: "a text target",
+            make: |workdir, file| {
+                lattice(workdir, file);
+                edit(workdir, file, "ALTER TABLE units ADD COLUMN grade TEXT;");
+            },
+            replace: &[(6, "grade")],
+            extra: &[],
+            code: 65,
+            says: &[
+                ":units.grade",
+                "column has type \"TEXT\"; it must be numeric",
+            ],
+        },
+        BadCase {
             name: "job that would replace the source layer",
             make: lattice,
             replace: &[],

@@ -394,6 +394,19 @@ fn bad_columns_and_duplicate_ids_exit_65_naming_table_column_and_row() {
             "numeric, or text for a categorical feature",
         ],
     );
+    // A text target is refused: only a feature may be categorical.
+    let mut text_target = grid("{s}.units", "a,b", "200", "3");
+    text_target[7] = "label";
+    refused(
+        &scratch,
+        &workdir,
+        &text_target,
+        65,
+        &[
+            "{s}.units.label",
+            "column has type text; it must be numeric\n",
+        ],
+    );
     let dupes = grid("{s}.dupes", "a,b", "200", "3");
     refused(
         &scratch,
