@@ -27,7 +27,7 @@ use uuid::Uuid;
 
 use crate::core::diagnostics::contiguity::Contiguity;
 use crate::core::units::{Dataset, IdKind, UnitCollector, UnitId};
-use crate::error::Error;
+use crate::error::{Error, Location};
 use crate::results::rows::{FinishedRun, RowSource, RunRecord};
 
 /// The columns the user asked for.
@@ -562,6 +562,48 @@ pub fn resolve_named_columns(
         group: columns.group.as_ref().map(|_| next()),
         exposure: columns.exposure.as_ref().map(|_| next()),
     })
+}
+
+/// What a column's declared type holds, as a source store sees it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ValueKind {
+    /// Numbers.
+    Number,
+    /// Text.
+    Text,
+    /// Anything else.
+    Other,
+}
+
+/// Checks the types of the value columns: the target and the exposure must
+/// hold numbers; a feature numbers or text (a categorical feature). `kind`
+/// tells a column's kind (None for a column not found); `problem(name,
+/// is_feature)` words a column of the wrong kind. Returns, per feature,
+/// whether it is text.
+pub fn check_value_kinds(
+    target: &str,
+    features: &[String],
+    exposure: Option<&str>,
+    kind: impl Fn(&str) -> Option<ValueKind>,
+    problem: impl Fn(&str, bool) -> (Location, String),
+    problems: &mut Vec<(Location, String)>,
+) -> Vec<bool> {
+    let text_features = features
+        .iter()
+        .map(|name| kind(name) == Some(ValueKind::Text))
+        .collect();
+    for name in std::iter::once(target)
+        .chain(features.iter().map(String::as_str))
+        .chain(exposure)
+    {
+        let is_feature = features.iter().any(|f| f == name);
+        match kind(name) {
+            None | Some(ValueKind::Number) => {}
+            Some(ValueKind::Text) if is_feature => {}
+            Some(_) => problems.push(problem(name, is_feature)),
+        }
+    }
+    text_features
 }
 
 /// ` (did you mean a, b?)` with up to three existing names close to `name`

@@ -5,14 +5,11 @@
 
 use futures_util::{pin_mut, StreamExt};
 
+use super::read::{INTEGER_TYPES, NUMERIC_TYPES, TEXT_TYPES};
 use super::store::PostgisStore;
 use super::{database_error, quote_ident, split_qualified};
 use crate::adapters::{resolve_columns, NameMatch, PredictionRow, PREDICTION_COLUMNS};
 use crate::error::{Error, Location};
-
-const INTEGER_TYPES: &[&str] = &["int2", "int4", "int8"];
-const ID_TYPES: &[&str] = &["int2", "int4", "int8", "text", "varchar", "bpchar"];
-const NUMERIC_TYPES: &[&str] = &["int2", "int4", "int8", "float4", "float8", "numeric"];
 
 impl PostgisStore {
     /// See [`crate::adapters::ResultStore::read_predictions`].
@@ -62,12 +59,13 @@ impl PostgisStore {
                 .find(|(n, _)| n == actual)
                 .map(|(_, t)| t.as_str())
                 .unwrap_or_default();
+            let of = |types: &[&str]| types.contains(&type_name);
             let allowed = match *wanted {
-                "unit_id" => ID_TYPES,
-                "predicted" => NUMERIC_TYPES,
-                _ => INTEGER_TYPES,
+                "unit_id" => of(INTEGER_TYPES) || of(TEXT_TYPES),
+                "predicted" => of(NUMERIC_TYPES),
+                _ => of(INTEGER_TYPES),
             };
-            if !allowed.contains(&type_name) {
+            if !allowed {
                 problems.push((
                     Location {
                         table: display.clone(),

@@ -32,8 +32,8 @@ use rusqlite::{Connection, OptionalExtension, Row};
 use super::schema::Srs;
 use super::{blob, check_geopackage, file_error, open_file, quote, sqlite_error};
 use crate::adapters::{
-    resolve_named_columns, suggest, ColumnSpec, CrsKind, NameMatch, NamedColumns, Source,
-    SourceInfo,
+    check_value_kinds, resolve_named_columns, suggest, ColumnSpec, CrsKind, NameMatch,
+    NamedColumns, Source, SourceInfo, ValueKind,
 };
 use crate::core::diagnostics::contiguity::Contiguity;
 use crate::core::units::{Dataset, Extras, IdKind, RawGeometry, UnitCollector, UnitId};
@@ -207,31 +207,35 @@ impl GpkgSource {
             IdKind::Integer
         };
         // A TEXT feature is categorical; the target and exposure must be numbers.
-        let text_features: Vec<bool> = feature_columns
-            .iter()
-            .map(|name| find(name).is_some_and(|c| is_text(&c.declared)))
-            .collect();
-        for name in std::iter::once(&target_column)
-            .chain(feature_columns.iter())
-            .chain(exposure_column.iter())
-        {
-            if let Some(column) = find(name) {
-                let declared = base_type(&column.declared);
-                let text_feature = feature_columns.contains(name) && is_text(&column.declared);
-                if !INTEGER_TYPES.contains(&declared.as_str())
-                    && !REAL_TYPES.contains(&declared.as_str())
-                    && !text_feature
-                {
-                    problems.push((
-                        location(name),
-                        format!(
-                            "column has type {:?}; it must be numeric (INTEGER, REAL, DOUBLE…)",
-                            column.declared
-                        ),
-                    ));
-                }
-            }
-        }
+        let text_features = check_value_kinds(
+            &target_column,
+            &feature_columns,
+            exposure_column.as_deref(),
+            |name| {
+                find(name).map(|c| {
+                    let declared = base_type(&c.declared);
+                    if INTEGER_TYPES.contains(&declared.as_str())
+                        || REAL_TYPES.contains(&declared.as_str())
+                    {
+                        ValueKind::Number
+                    } else if is_text(&c.declared) {
+                        ValueKind::Text
+                    } else {
+                        ValueKind::Other
+                    }
+                })
+            },
+            |name, _| {
+                let declared = find(name).map_or("", |c| c.declared.as_str());
+                (
+                    location(name),
+                    format!(
+                        "column has type {declared:?}; it must be numeric (INTEGER, REAL, DOUBLE…)"
+                    ),
+                )
+            },
+            &mut problems,
+        );
         if let Some(group) = group_column.as_deref().and_then(find) {
             let declared = base_type(&group.declared);
             if !INTEGER_TYPES.contains(&declared.as_str()) && declared != "TEXT" {

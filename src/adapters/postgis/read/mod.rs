@@ -13,8 +13,8 @@ use geozero::ToGeo;
 use super::copy::{read_float8, read_int8, CopyDecoder};
 use super::{database_error, quote_ident, split_qualified, Session};
 use crate::adapters::{
-    index_pairs, resolve_named_columns, suggest, ColumnSpec, CrsKind, NameMatch, NamedColumns,
-    Source, SourceInfo,
+    check_value_kinds, index_pairs, resolve_named_columns, suggest, ColumnSpec, CrsKind, NameMatch,
+    NamedColumns, Source, SourceInfo, ValueKind,
 };
 use crate::core::diagnostics::contiguity::Contiguity;
 use crate::core::units::Dataset;
@@ -33,9 +33,9 @@ pub struct PostgisSource {
     select: String,
 }
 
-const INTEGER_TYPES: &[&str] = &["int2", "int4", "int8"];
-const TEXT_TYPES: &[&str] = &["text", "varchar", "bpchar"];
-const NUMERIC_TYPES: &[&str] = &["int2", "int4", "int8", "float4", "float8", "numeric"];
+pub(super) const INTEGER_TYPES: &[&str] = &["int2", "int4", "int8"];
+pub(super) const TEXT_TYPES: &[&str] = &["text", "varchar", "bpchar"];
+pub(super) const NUMERIC_TYPES: &[&str] = &["int2", "int4", "int8", "float4", "float8", "numeric"];
 
 struct Column {
     name: String,
@@ -213,30 +213,35 @@ impl PostgisSource {
             }
         }
         // A text feature is categorical; the target and exposure must be numbers.
-        let text_features: Vec<bool> = feature_columns
-            .iter()
-            .map(|name| find(name).is_some_and(|c| TEXT_TYPES.contains(&c.type_name.as_str())))
-            .collect();
-        for name in std::iter::once(&target_column)
-            .chain(feature_columns.iter())
-            .chain(exposure_column.iter())
-        {
-            if let Some(column) = find(name) {
-                let text_feature = feature_columns.contains(name)
-                    && TEXT_TYPES.contains(&column.type_name.as_str());
-                if !NUMERIC_TYPES.contains(&column.type_name.as_str()) && !text_feature {
-                    let allowed = if feature_columns.contains(name) {
-                        "numeric, or text for a categorical feature"
+        let text_features = check_value_kinds(
+            &target_column,
+            &feature_columns,
+            exposure_column.as_deref(),
+            |name| {
+                find(name).map(|c| {
+                    if NUMERIC_TYPES.contains(&c.type_name.as_str()) {
+                        ValueKind::Number
+                    } else if TEXT_TYPES.contains(&c.type_name.as_str()) {
+                        ValueKind::Text
                     } else {
-                        "numeric"
-                    };
-                    problems.push((
-                        location(name),
-                        format!("column has type {}; it must be {allowed}", column.formatted),
-                    ));
-                }
-            }
-        }
+                        ValueKind::Other
+                    }
+                })
+            },
+            |name, is_feature| {
+                let allowed = if is_feature {
+                    "numeric, or text for a categorical feature"
+                } else {
+                    "numeric"
+                };
+                let formatted = find(name).map_or("", |c| c.formatted.as_str());
+                (
+                    location(name),
+                    format!("column has type {formatted}; it must be {allowed}"),
+                )
+            },
+            &mut problems,
+        );
         if !problems.is_empty() {
             return Err(Error::Input { problems });
         }
