@@ -34,7 +34,6 @@ use crate::adapters::gpkg::scoring::read_predictions_file;
 use crate::adapters::history::Store;
 use crate::adapters::{ColumnSpec, PredictionRow};
 use crate::core::buckets::Buckets;
-use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
 use crate::core::folds::{build_scheme, FoldSet, Region};
 use crate::core::matching::Matching;
 use crate::core::metrics::Family;
@@ -43,7 +42,7 @@ use crate::core::options::Options;
 use crate::core::units::Dataset;
 use crate::core::validate::{score_predictions, Predicted};
 use crate::error::{Error, Location};
-use crate::pipeline::{attach_held_out_moran, open_source, read_units};
+use crate::pipeline::{attach_held_out_moran, distance_summaries, open_source, read_units};
 use crate::readback::load::nearest_distances;
 use crate::report::Summary;
 use crate::results::rows::{FinishedRun, RunRecord, Stage};
@@ -108,6 +107,7 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
     let mut store = open_store(spec)?;
     let job = assigned::run_record(store.as_mut(), spec.run_id)?.job;
     store.lock_job(&job, spec.limits.wait())?;
+    // Read again under the lock: another session may have scored it meanwhile.
     let run = assigned::assigned_run(store.as_mut(), spec.run_id)?;
     if run.record.status != "assigned" {
         return Err(Error::Usage(format!(
@@ -173,14 +173,13 @@ pub fn score(spec: &ScoreSpec) -> Result<Summary, Error> {
     let (cv, prediction) = nearest_distances(store.as_mut(), &run.run_id.to_string())?;
     // For the summary, the test-to-training distances as the assignment
     // stored them (the same seeded figures; the scored write keeps its rows).
-    if let Some(first) = outcome.repetitions.first() {
-        let buckets = Buckets::new(&data.points);
-        outcome.fold_distances =
-            fold_distances(&first.folds, &data.points, &buckets, run.record.seed as u64);
-    }
-    outcome
-        .fold_distances
-        .extend(summarise("prediction", None, &prediction, None));
+    outcome.fold_distances = distance_summaries(
+        &outcome,
+        &data.points,
+        &Buckets::new(&data.points),
+        run.record.seed as u64,
+        (!prediction.is_empty()).then_some(prediction.as_slice()),
+    );
     if !prediction.is_empty() {
         let cv: Vec<&[f64]> = cv.iter().map(Vec::as_slice).collect();
         outcome.matching = Some(Matching::new(prediction, &cv));

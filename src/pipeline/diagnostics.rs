@@ -67,6 +67,25 @@ pub(crate) fn attach_held_out_moran(
     }
 }
 
+/// A run's nearest-distance summaries (`fold_distances` rows): each fold's
+/// test-to-training distances in its first repetition, and the prediction
+/// locations' distances to the data when the run has them.
+pub(crate) fn distance_summaries(
+    outcome: &RunOutcome,
+    points: &[[f64; 2]],
+    buckets: &Buckets,
+    seed: u64,
+    prediction: Option<&[f64]>,
+) -> Vec<DistanceSummary> {
+    let mut summaries = outcome
+        .repetitions
+        .first()
+        .map(|first| fold_distances(&first.folds, points, buckets, seed))
+        .unwrap_or_default();
+    summaries.extend(prediction.and_then(|p| summarise("prediction", None, p, None)));
+    summaries
+}
+
 /// Fills every run's [`LateFigures`] (both cells, always: the write waits
 /// for them) and returns, per run, why its Moran's I could not be computed.
 pub(super) fn late_figures(
@@ -114,15 +133,12 @@ pub(super) fn late_figures(
             moran_time += clock.elapsed();
             let clock = std::time::Instant::now();
             let buckets = buckets.get_or_insert_with(|| Buckets::new(&data.points));
-            let mut summaries = outcome
-                .repetitions
-                .first()
-                .map(|first| fold_distances(&first.folds, &data.points, buckets, spec.seed))
-                .unwrap_or_default();
-            summaries.extend(
-                context
-                    .prediction
-                    .and_then(|p| summarise("prediction", None, p, None)),
+            let summaries = distance_summaries(
+                outcome,
+                &data.points,
+                buckets,
+                spec.seed,
+                context.prediction,
             );
             let _ = cell.fold_distances.set(summaries);
             distance_time += clock.elapsed();

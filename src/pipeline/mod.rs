@@ -47,7 +47,7 @@ use crate::adapters::{
     default_job, CrsKind, Locations, ResultStore, Source, SourceInfo, StoredInspection,
 };
 use crate::core::buckets::Buckets;
-use crate::core::diagnostics::fold_distances::{fold_distances, summarise};
+use crate::core::diagnostics::fold_distances::{fold_distances, summarise, DistanceSummary};
 use crate::core::diagnostics::held_out::{HeldOutMoran, HeldOutWeights};
 use crate::core::folds::random::Random;
 use crate::core::folds::{FoldScheme, FoldSet, SchemeInput};
@@ -72,8 +72,8 @@ mod read;
 mod record;
 mod write;
 
-pub(crate) use diagnostics::attach_held_out_moran;
 use diagnostics::*;
+pub(crate) use diagnostics::{attach_held_out_moran, distance_summaries};
 pub use open::*;
 pub use parameters::*;
 pub use read::*;
